@@ -27,6 +27,7 @@ import yaml
 
 from .errors import PackError
 from .features import Frontend
+from .vocabulary import Vocabulary, load_vocabulary
 
 DEFAULT_PACK = "yamnet-int8"
 _BUILTIN_DIR = Path(__file__).parent / "data"
@@ -352,10 +353,11 @@ def _quantization(graph: Any, tensor: str, op_type: str, *, as_input: bool) -> t
 
 @dataclass(frozen=True, slots=True)
 class LoadedPack:
-    """A ready pack: its manifest, class labels and a classifier session."""
+    """A ready pack: its manifest, class labels, vocabulary and a classifier session."""
 
     manifest: PackManifest
     labels: tuple[str, ...]
+    vocabulary: Vocabulary
     classifier: OnnxClassifier
 
 
@@ -378,4 +380,4 @@ def load_pack(name_or_path: str, *, cache: Path, auto_install: bool = True, say:
         _write_batched_graph(model_path)
     labels = read_labels(manifest)
     classifier = OnnxClassifier(batched if batched.is_file() else model_path, output=manifest.output)
-    return LoadedPack(manifest, labels, classifier)
+    return LoadedPack(manifest, labels, load_vocabulary(manifest.vocabulary, labels), classifier)

@@ -1,0 +1,130 @@
+"""Cues: kept events -> worded, timed, laid-out captions that never overlap."""
+
+from __future__ import annotations
+
+import textwrap
+from dataclasses import dataclass, replace
+
+from .events import SoundEvent
+from .policy import Decision
+from .style import Layout, Style, Wording
+from .vocabulary import Kind
+
+_LASTING = (Kind.CONTINUOUS, Kind.MUSIC, Kind.AMBIENCE)
+
+
+@dataclass(frozen=True, slots=True)
+class Cue:
+    """One caption on screen: [start_ms, end_ms) and up to max_lines lines of text."""
+
+    start_ms: int
+    end_ms: int
+    lines: tuple[str, ...]
+    event_ids: tuple[str, ...]
+
+    @property
+    def text(self) -> str:
+        return "\n".join(self.lines)
+
+
+def word(phrase: str, wording: Wording, *, music: bool = False) -> str:
+    """Render a vocabulary phrase in a style's convention.
+
+    >>> word("dog barking", Wording())
+    '[dog barking]'
+    >>> word("dog barks", Wording(case="upper", brackets=False))
+    'DOG BARKS'
+    >>> word("upbeat music", Wording(music_notes=True), music=True)
+    '♪ upbeat music ♪'
+    """
+    text = phrase.upper() if wording.case == "upper" else phrase
+    if music and wording.music_notes:
+        return f"♪ {text} ♪"
+    return f"[{text}]" if wording.brackets else text
+
+
+def event_text(event: SoundEvent, wording: Wording) -> str:
+    phrase = event.phrase if wording.tense == "ing" else event.phrase_present
+    return word(phrase, wording, music=event.kind is Kind.MUSIC)
+
+
+def end_text(event: SoundEvent, wording: Wording) -> str:
+    """Text for the end of a lasting sound, e.g. "[rain falling stops]"."""
+    return word(f"{event.phrase} stops", wording, music=event.kind is Kind.MUSIC)
+
+
+def wrap(text: str, layout: Layout) -> tuple[str, ...]:
+    """Break text into lines of at most max_chars_per_line (long words are split)."""
+    return tuple(textwrap.wrap(text, layout.max_chars_per_line, break_long_words=True)) or ("",)
+
+
+def reading_ms(lines: tuple[str, ...], layout: Layout) -> int:
+    """Display time the reading rate asks for: words / (wpm / 60 s).
+
+    >>> reading_ms(("[door slams]",), Layout(reading_rate_wpm=160))
+    750
+    """
+    words = sum(len(line.split()) for line in lines)
+    return round(words * 60000 / layout.reading_rate_wpm)
+
+
+def build_cues(events: tuple[SoundEvent, ...], style: Style, duration_ms: int) -> tuple[tuple[Cue, ...], tuple[Decision, ...]]:
+    """Word and time each kept event, add end cues, then resolve overlaps and gaps.
+
+    Returns the cues in time order and a `layout` decision for any event that could not
+    be placed within the style's limits.
+    """
+    layout, wording = style.layout, style.wording
+    drafts: list[Cue] = []
+    for event in events:
+        lines = wrap(event_text(event, wording), layout)
+        drafts.append(_timed(event.start_ms, event.end_ms, lines, (event.event_id,), layout, duration_ms))
+        lasting = event.kind in _LASTING and event.duration_ms >= wording.end_cue_min_ms
+        if wording.end_cues and lasting and event.end_ms < duration_ms - layout.min_duration_ms:
+            end_lines = wrap(end_text(event, wording), layout)
+            drafts.append(_timed(event.end_ms, event.end_ms, end_lines, (event.event_id + "-end",), layout, duration_ms))
+    drafts.sort(key=lambda c: (c.start_ms, c.end_ms))
+    return _resolve(drafts, layout)
+
+
+def _timed(start_ms: int, end_ms: int, lines: tuple[str, ...], ids: tuple[str, ...], layout: Layout, duration_ms: int) -> Cue:
+    shortest = max(layout.min_duration_ms, reading_ms(lines, layout))
+    end = min(max(end_ms, start_ms + shortest), start_ms + layout.max_duration_ms)
+    if duration_ms > start_ms:
+        end = min(end, max(duration_ms, start_ms + 1))
+    return Cue(start_ms, max(end, start_ms + 1), lines, ids)
+
+
+def _resolve(drafts: list[Cue], layout: Layout) -> tuple[tuple[Cue, ...], tuple[Decision, ...]]:
+    """Merge overlapping cues into one multi-line cue where lines allow, else shift or drop."""
+    cues: list[Cue] = []
+    dropped: list[Decision] = []
+    for cue in drafts:
+        if not cues or cue.start_ms >= cues[-1].end_ms:
+            cues.append(cue)
+            continue
+        previous = cues[-1]
+        if len(previous.lines) + len(cue.lines) <= layout.max_lines:
+            end = min(max(previous.end_ms, cue.end_ms), previous.start_ms + layout.max_duration_ms)
+            cues[-1] = Cue(previous.start_ms, end, previous.lines + cue.lines, previous.event_ids + cue.event_ids)
+        elif previous.end_ms - cue.start_ms <= layout.sync_tolerance_ms:
+            shift = previous.end_ms - cue.start_ms
+            cues.append(replace(cue, start_ms=cue.start_ms + shift, end_ms=max(cue.end_ms, cue.start_ms + shift + layout.min_duration_ms)))
+        else:
+            for event_id in (i for i in cue.event_ids if not i.endswith("-end")):
+                dropped.append(Decision(event_id, False, "layout", "no room on screen beside an earlier caption"))
+    return tuple(_apply_gaps(cues, layout)), tuple(dropped)
+
+
+def _apply_gaps(cues: list[Cue], layout: Layout) -> list[Cue]:
+    """Close gaps shorter than min_gap_ms by extending the earlier cue, or widen them."""
+    result = list(cues)
+    for i in range(len(result) - 1):
+        current, following = result[i], result[i + 1]
+        gap = following.start_ms - current.end_ms
+        if 0 < gap < layout.min_gap_ms:
+            if following.start_ms - current.start_ms <= layout.max_duration_ms:
+                result[i] = replace(current, end_ms=following.start_ms)
+            else:
+                result[i] = replace(current, end_ms=max(current.start_ms + 1, following.start_ms - layout.min_gap_ms))
+    return result

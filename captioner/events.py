@@ -1,0 +1,191 @@
+"""Events: per-concept score curves -> smoothed, double-thresholded, timed SoundEvents."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy.ndimage import median_filter
+
+from .scores import ScoreTrack
+from .style import Detection
+from .vocabulary import ClassEntry, Kind, Vocabulary
+
+_NEVER_CAPTIONED = (Kind.SPEECH, Kind.IGNORE)
+
+
+@dataclass(frozen=True, slots=True)
+class SoundEvent:
+    """One occurrence of a concept, in integer milliseconds."""
+
+    event_id: str
+    concept: str
+    label: str  # the class that scored highest over the event (chooses the wording)
+    phrase: str
+    phrase_present: str
+    kind: Kind
+    priority: int
+    parent: str | None
+    start_ms: int
+    end_ms: int
+    peak_score: float
+    mean_score: float
+    level_db: float  # loudness of the event (dBFS, 90th percentile of frame levels)
+    background_db: float  # loudness around it (dBFS, median of frames in a +-5 s window)
+
+    @property
+    def duration_ms(self) -> int:
+        return self.end_ms - self.start_ms
+
+    @property
+    def contrast_db(self) -> float:
+        return self.level_db - self.background_db
+
+
+@dataclass(frozen=True, slots=True)
+class Span:
+    """A stretch of time, e.g. dialogue, in integer milliseconds."""
+
+    start_ms: int
+    end_ms: int
+
+
+def median_patches(median_ms: int, hop_ms: int) -> int:
+    """Odd median-filter length in patches for a length in ms (1 = no smoothing).
+
+    >>> median_patches(1440, 480), median_patches(0, 480), median_patches(960, 480)
+    (3, 1, 3)
+    """
+    count = max(1, round(median_ms / hop_ms))
+    return count if count % 2 else count + 1
+
+
+def hysteresis(curve: np.ndarray, onset: float, offset: float) -> list[tuple[int, int]]:
+    """Runs [first, last) that stay at or above `offset` and reach `onset` somewhere.
+
+    >>> hysteresis(np.array([0.1, 0.6, 0.4, 0.35, 0.1, 0.7, 0.4, 0.2, 0.4]), 0.5, 0.3)
+    [(1, 4), (5, 7)]
+    """
+    above = np.concatenate([[False], curve >= offset, [False]])
+    edges = np.flatnonzero(np.diff(above.astype(np.int8)))
+    return [(int(a), int(b)) for a, b in zip(edges[::2], edges[1::2]) if curve[a:b].max() >= onset]
+
+
+def concept_curves(track: ScoreTrack, vocabulary: Vocabulary) -> dict[str, tuple[np.ndarray, tuple[ClassEntry, ...]]]:
+    """Concept -> (max score over its classes per patch, its classes), captioned kinds only."""
+    curves = {}
+    for concept, entries in vocabulary.concepts().items():
+        if entries[0].kind in _NEVER_CAPTIONED:
+            continue
+        columns = [e.index for e in entries]
+        curves[concept] = (track.scores[:, columns].max(axis=1), entries)
+    return curves
+
+
+def detect_events(track: ScoreTrack, vocabulary: Vocabulary, settings: Detection) -> list[SoundEvent]:
+    """Every concept occurrence in the track, sorted by start time.
+
+    Speech and ignored classes never become events. Times are refined to the nearest rise
+    in signal level when settings.onset_refine is on.
+    """
+    kernel = median_patches(settings.median_ms, track.hop_ms)
+    found: list[SoundEvent] = []
+    for concept, (curve, entries) in concept_curves(track, vocabulary).items():
+        smooth = median_filter(curve, size=kernel, mode="nearest") if kernel > 1 else curve
+        runs = hysteresis(smooth, settings.onset_threshold, settings.offset_threshold)
+        spans = _merge_runs([_run_to_ms(track, run) for run in runs], settings.merge_gap_ms)
+        for start_ms, end_ms, first, last in spans:
+            if end_ms - start_ms < settings.min_event_ms:
+                continue
+            if settings.onset_refine:
+                start_ms = refine_onset(track, start_ms)
+            columns = [e.index for e in entries]
+            window = track.scores[first:last, columns]
+            best = entries[int(np.argmax(window.sum(axis=0)))]
+            level, background = _levels(track, start_ms, end_ms)
+            found.append(
+                SoundEvent(
+                    event_id="",
+                    concept=concept,
+                    label=best.label,
+                    phrase=best.phrase,
+                    phrase_present=best.phrase_present,
+                    kind=best.kind,
+                    priority=best.priority,
+                    parent=best.parent,
+                    start_ms=start_ms,
+                    end_ms=end_ms,
+                    peak_score=float(curve[first:last].max()),
+                    mean_score=float(curve[first:last].mean()),
+                    level_db=level,
+                    background_db=background,
+                )
+            )
+    found.sort(key=lambda e: (e.start_ms, -e.priority, e.concept))
+    return [_with_id(e, i) for i, e in enumerate(found, start=1)]
+
+
+def _with_id(event: SoundEvent, number: int) -> SoundEvent:
+    from dataclasses import replace
+
+    return replace(event, event_id=f"e{number:04d}")
+
+
+def _run_to_ms(track: ScoreTrack, run: tuple[int, int]) -> tuple[int, int, int, int]:
+    """Patch run -> (start_ms, end_ms, first, last).
+
+    A patch sees a sound anywhere in its span; the patch before the run did not, so the
+    sound most likely starts where that earlier patch ends, i.e. one hop into the first
+    active patch's span minus the overlap. Symmetrically it ends where the patch after
+    the run begins.
+    """
+    first, last = run
+    overlap = track.patch_ms - track.hop_ms
+    start = int(track.patch_start_ms(first)) + (overlap if first > 0 else 0)
+    end = int(track.patch_start_ms(last - 1)) + (track.hop_ms if last < track.n_patches else track.patch_ms)
+    end = min(max(end, start + track.hop_ms), max(track.duration_ms, start + track.hop_ms))
+    return start, end, first, last
+
+
+def _merge_runs(spans: list[tuple[int, int, int, int]], gap_ms: int) -> list[tuple[int, int, int, int]]:
+    merged: list[tuple[int, int, int, int]] = []
+    for span in spans:
+        if merged and span[0] - merged[-1][1] < gap_ms:
+            prev = merged[-1]
+            merged[-1] = (prev[0], max(prev[1], span[1]), prev[2], max(prev[3], span[3]))
+        else:
+            merged.append(span)
+    return merged
+
+
+def _frames(track: ScoreTrack, start_ms: float, end_ms: float) -> np.ndarray:
+    first = max(0, int(start_ms / track.frame_ms))
+    last = min(track.energy_db.size, int(np.ceil(end_ms / track.frame_ms)))
+    return track.energy_db[first:last] if last > first else np.zeros(0, np.float32)
+
+
+def _levels(track: ScoreTrack, start_ms: int, end_ms: int) -> tuple[float, float]:
+    inside = _frames(track, start_ms, end_ms)
+    around = np.concatenate([_frames(track, start_ms - 5000, start_ms), _frames(track, end_ms, end_ms + 5000)])
+    level = float(np.percentile(inside, 90)) if inside.size else -100.0
+    background = float(np.median(around)) if around.size else -100.0
+    return level, background
+
+
+def refine_onset(track: ScoreTrack, start_ms: int, search_ms: int = 700) -> int:
+    """Move an onset to the steepest rise in signal level within +-search_ms.
+
+    The level curve is smoothed over 50 ms so single-frame clicks do not win; the onset
+    moves only where the rise is at least 6 dB, otherwise it stays put.
+    """
+    first = max(0, int((start_ms - search_ms) / track.frame_ms))
+    segment = _frames(track, first * track.frame_ms, start_ms + search_ms)
+    if segment.size < 10:
+        return start_ms
+    width = 5
+    smooth = np.convolve(segment, np.ones(width) / width, mode="same")
+    rise = smooth[width:] - smooth[:-width]
+    best = int(np.argmax(rise))
+    if rise[best] < 6.0:
+        return start_ms
+    return max(0, round((first + best + width // 2) * track.frame_ms))

@@ -1,0 +1,48 @@
+"""Output formats: one writer per format, and the one safe way to put a file on disk."""
+
+from __future__ import annotations
+
+import os
+import tempfile
+from collections.abc import Callable, Sequence
+from pathlib import Path
+from typing import Literal
+
+from ..cues import Cue
+from ..errors import OutputError
+from . import srt, webvtt
+
+Format = Literal["vtt", "srt"]
+WRITERS: dict[str, Callable[[Sequence[Cue], str], str]] = {"vtt": webvtt.dumps, "srt": srt.dumps}
+
+
+def write_atomic(path: Path, text: str, *, force: bool = False) -> None:
+    """Write text as UTF-8 via a temporary file and a rename, so a crash never leaves half a file.
+
+    Raises:
+        OutputError: the file exists and force is off, or the folder is not writable.
+    """
+    path = Path(path)
+    if path.exists() and not force:
+        raise OutputError(path, "already exists (it may hold hand edits)", "pass --force to replace it, or choose another -o")
+    folder = path.parent if str(path.parent) else Path(".")
+    if not folder.is_dir():
+        raise OutputError(path, f"folder {folder} does not exist", "create it or choose another -o")
+    try:
+        handle, temporary = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=folder)
+    except OSError as exc:
+        raise OutputError(path, f"cannot write in {folder} ({exc.strerror})", "choose a writable folder with -o") from exc
+    try:
+        with os.fdopen(handle, "w", encoding="utf-8", newline="\n") as stream:
+            stream.write(text)
+        os.chmod(temporary, 0o666 & ~_umask())  # mkstemp makes it private; use the usual mode
+        os.replace(temporary, path)
+    except OSError as exc:
+        Path(temporary).unlink(missing_ok=True)
+        raise OutputError(path, f"cannot write ({exc.strerror})", "check free space and permissions") from exc
+
+
+def _umask() -> int:
+    current = os.umask(0)
+    os.umask(current)
+    return current

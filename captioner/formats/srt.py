@@ -1,0 +1,24 @@
+"""SRT writer, composed by the `srt` library (counter from 1, comma decimals)."""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from datetime import timedelta
+
+import srt as srt_library
+
+from ..cues import Cue
+
+
+def dumps(cues: Sequence[Cue], note: str = "") -> str:
+    """The whole SRT file as text. SRT has no comment blocks, so `note` is not written."""
+    subtitles = [
+        srt_library.Subtitle(
+            index=number,
+            start=timedelta(milliseconds=cue.start_ms),
+            end=timedelta(milliseconds=cue.end_ms),
+            content="\n".join(line for line in cue.lines if line.strip()),
+        )
+        for number, cue in enumerate(cues, start=1)
+    ]
+    return srt_library.compose(subtitles, reindex=False)

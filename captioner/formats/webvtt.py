@@ -1,0 +1,50 @@
+"""WebVTT writer (W3C WebVTT: header, timestamps, cue identifiers, escaped text)."""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+from ..cues import Cue
+
+
+def timestamp(ms: int) -> str:
+    """WebVTT timestamp hh:mm:ss.ttt (hours always written, at least two digits).
+
+    >>> timestamp(3723004)
+    '01:02:03.004'
+    """
+    if ms < 0:
+        raise ValueError(f"ms={ms} must be >= 0")
+    hours, rest = divmod(ms, 3_600_000)
+    minutes, rest = divmod(rest, 60_000)
+    seconds, millis = divmod(rest, 1000)
+    return f"{hours:02d}:{minutes:02d}:{seconds:02d}.{millis:03d}"
+
+
+def escape(text: str) -> str:
+    """Escape cue text: & and < start markup in WebVTT, > is escaped for safety; the
+    "-->" arrow cannot survive escaping of '>' so it never reaches a player.
+
+    >>> escape("<b> & -->")
+    '&lt;b&gt; &amp; --&gt;'
+    """
+    return text.replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
+
+
+def _note(text: str) -> str:
+    # A NOTE block ends at a blank line and may not contain "-->".
+    lines = [line.replace("-->", "->") for line in text.splitlines() if line.strip()]
+    return "NOTE\n" + "\n".join(lines)
+
+
+def dumps(cues: Sequence[Cue], note: str = "") -> str:
+    """The whole WebVTT file as text; `note` becomes a NOTE block after the header."""
+    blocks = ["WEBVTT"]
+    if note:
+        blocks.append(_note(note))
+    for cue in cues:
+        identifier = cue.event_ids[0] if cue.event_ids else ""
+        body = "\n".join(escape(line) for line in cue.lines if line.strip()) or "&nbsp;"
+        timing = f"{timestamp(cue.start_ms)} --> {timestamp(cue.end_ms)}"
+        blocks.append("\n".join(part for part in (identifier, timing, body) if part))
+    return "\n\n".join(blocks) + "\n"

@@ -1,0 +1,199 @@
+"""Settings: one frozen `Style` holding every tunable value, loaded from a YAML preset or file.
+
+A style file has four sections (wording, layout, detection, selection); any field left out
+keeps the default documented here. Unknown fields, wrong types and out-of-range values are
+rejected with the field's name and value.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import typing
+from dataclasses import dataclass, field
+from importlib import resources
+from pathlib import Path
+from typing import Any, Literal
+
+import yaml
+
+from .errors import StyleError
+
+
+@dataclass(frozen=True, slots=True)
+class Wording:
+    """How a sound becomes caption text."""
+
+    case: Literal["lower", "upper"] = "lower"
+    brackets: bool = True  # "[dog barking]" rather than "dog barking"
+    tense: Literal["ing", "present"] = "ing"  # "dog barking" vs "dog barks"
+    music_notes: bool = False  # "♪ upbeat music ♪" instead of brackets for music
+    end_cues: bool = True  # "[rain stops]" when a long continuous sound ends
+    end_cue_min_ms: int = 8000  # only sounds at least this long get an end cue
+
+
+@dataclass(frozen=True, slots=True)
+class Layout:
+    """Cue size and timing limits (defaults from published caption guidance)."""
+
+    max_chars_per_line: int = 32
+    max_lines: int = 2
+    min_duration_ms: int = 2000
+    max_duration_ms: int = 6000
+    min_gap_ms: int = 0  # gaps shorter than this are closed or widened
+    reading_rate_wpm: int = 160
+    sync_tolerance_ms: int = 1500  # how far a cue may move from its sound
+
+
+@dataclass(frozen=True, slots=True)
+class Detection:
+    """Turning score curves into timed events."""
+
+    patch_hop_ms: int = 480
+    median_ms: int = 1440  # median filter length on each concept's score curve
+    onset_threshold: float = 0.25  # a concept becomes active above this ...
+    offset_threshold: float = 0.12  # ... and stays active above this
+    min_event_ms: int = 100
+    merge_gap_ms: int = 1000  # same-concept events closer than this become one
+    speech_onset: float = 0.5
+    speech_offset: float = 0.3
+    onset_refine: bool = True  # move onsets to the nearest rise in signal level
+
+
+@dataclass(frozen=True, slots=True)
+class Selection:
+    """Which detected events become cues."""
+
+    min_confidence: float = 0.3
+    min_duration_ms: int = 0
+    min_level_db: float = -55.0  # evidence gate: quieter than this is near-silence
+    min_contrast_db: float = 3.0  # event level above its local background
+    dialogue_min_priority: int = 3  # under dialogue, lower priorities are dropped ...
+    dialogue_confidence: float = 0.5  # ... and kept ones need this confidence
+    cooldown_ms: int = 10000  # same concept again within this joins the earlier cue
+    max_cues_per_minute: int = 12
+    parent_redundancy: bool = True
+
+
+@dataclass(frozen=True, slots=True)
+class Style:
+    """All settings of one run."""
+
+    name: str = "default"
+    description: str = ""
+    wording: Wording = field(default_factory=Wording)
+    layout: Layout = field(default_factory=Layout)
+    detection: Detection = field(default_factory=Detection)
+    selection: Selection = field(default_factory=Selection)
+
+
+_SECTIONS = {"wording": Wording, "layout": Layout, "detection": Detection, "selection": Selection}
+_RANGES: dict[str, tuple[float, float]] = {
+    "max_chars_per_line": (10, 80),
+    "max_lines": (1, 4),
+    "min_duration_ms": (0, 20000),
+    "max_duration_ms": (500, 60000),
+    "min_gap_ms": (0, 5000),
+    "reading_rate_wpm": (60, 400),
+    "sync_tolerance_ms": (0, 5000),
+    "patch_hop_ms": (10, 960),
+    "median_ms": (0, 10000),
+    "onset_threshold": (0.0, 1.0),
+    "offset_threshold": (0.0, 1.0),
+    "speech_onset": (0.0, 1.0),
+    "speech_offset": (0.0, 1.0),
+    "min_confidence": (0.0, 1.0),
+    "dialogue_confidence": (0.0, 1.0),
+    "dialogue_min_priority": (1, 6),
+    "max_cues_per_minute": (1, 60),
+    "min_level_db": (-120.0, 0.0),
+    "min_contrast_db": (-60.0, 60.0),
+}
+
+
+def builtin_styles() -> dict[str, Path]:
+    """Preset name -> file, for the presets shipped in styles/."""
+    folder = resources.files("captioner.styles")
+    return {Path(str(item)).stem: Path(str(item)) for item in folder.iterdir() if str(item).endswith(".yaml")}
+
+
+def load_style(name_or_path: str) -> Style:
+    """A preset by name, or a style YAML file by path.
+
+    Raises:
+        StyleError: unknown preset, unreadable or malformed file, invalid field.
+    """
+    presets = builtin_styles()
+    path = presets.get(name_or_path) or Path(name_or_path)
+    if not path.is_file():
+        raise StyleError(name_or_path, "no such style", f"use one of {', '.join(sorted(presets))} or a path to a style .yaml file")
+    try:
+        data = yaml.safe_load(path.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError) as exc:
+        raise StyleError(path, f"cannot read the style file ({exc})", "check the file") from exc
+    except yaml.YAMLError as exc:
+        mark = getattr(exc, "problem_mark", None)
+        where = f" at line {mark.line + 1}" if mark else ""
+        raise StyleError(path, f"malformed YAML{where}", "fix the syntax (compare with a preset from `captioner styles`)") from exc
+    return style_from_mapping(data or {}, source=str(path), default_name=path.stem)
+
+
+def style_from_mapping(data: Any, *, source: str = "style", default_name: str = "custom") -> Style:
+    """Build a validated Style from a parsed YAML mapping."""
+    if not isinstance(data, dict):
+        raise StyleError(source, "a style must be a YAML mapping of sections", "see `captioner styles` for an example")
+    unknown = set(data) - set(_SECTIONS) - {"name", "description"}
+    if unknown:
+        raise StyleError(source, f"unknown section(s) {', '.join(sorted(unknown))}", f"use {', '.join(_SECTIONS)}")
+    sections = {name: _section(source, name, cls, data.get(name) or {}) for name, cls in _SECTIONS.items()}
+    style = Style(name=str(data.get("name", default_name)), description=str(data.get("description", "")), **sections)
+    _check_consistency(source, style)
+    return style
+
+
+def _section(source: str, name: str, cls: type, values: Any) -> Any:
+    if not isinstance(values, dict):
+        raise StyleError(source, f"section {name} must be a mapping", "indent its fields under it")
+    hints = typing.get_type_hints(cls)
+    unknown = set(values) - set(hints)
+    if unknown:
+        raise StyleError(source, f"unknown field(s) {', '.join(f'{name}.{k}' for k in sorted(unknown))}", f"{name} takes {', '.join(hints)}")
+    for key, value in values.items():
+        _check_value(source, f"{name}.{key}", hints[key], value)
+    return cls(**values)
+
+
+def _check_value(source: str, label: str, hint: Any, value: Any) -> None:
+    key = label.split(".")[-1]
+    if typing.get_origin(hint) is Literal:
+        if value not in typing.get_args(hint):
+            raise StyleError(source, f"{label}={value!r} is not one of {', '.join(map(str, typing.get_args(hint)))}", "pick one of those")
+        return
+    ok = {
+        bool: isinstance(value, bool),
+        int: isinstance(value, int) and not isinstance(value, bool),
+        float: isinstance(value, (int, float)) and not isinstance(value, bool),
+        str: isinstance(value, str),
+    }.get(hint, True)
+    if not ok:
+        raise StyleError(source, f"{label}={value!r} must be a {hint.__name__}", "fix the value")
+    if key in _RANGES and not isinstance(value, bool):
+        low, high = _RANGES[key]
+        if not low <= value <= high:
+            raise StyleError(source, f"{label}={value!r} is outside {low:g}..{high:g}", "choose a value in range")
+
+
+def _check_consistency(source: str, style: Style) -> None:
+    d, layout = style.detection, style.layout
+    if d.offset_threshold > d.onset_threshold:
+        raise StyleError(source, f"detection.offset_threshold={d.offset_threshold} is above onset_threshold={d.onset_threshold}", "the offset threshold must be the lower one")
+    if d.speech_offset > d.speech_onset:
+        raise StyleError(source, f"detection.speech_offset={d.speech_offset} is above speech_onset={d.speech_onset}", "the offset threshold must be the lower one")
+    if layout.min_duration_ms > layout.max_duration_ms:
+        raise StyleError(source, f"layout.min_duration_ms={layout.min_duration_ms} exceeds max_duration_ms={layout.max_duration_ms}", "make the minimum smaller")
+    if d.patch_hop_ms % 10:
+        raise StyleError(source, f"detection.patch_hop_ms={d.patch_hop_ms} is not a multiple of 10", "use a multiple of the 10 ms frame hop")
+
+
+def replace(style: Style, section: str, **changes: Any) -> Style:
+    """A copy of `style` with fields of one section changed (for experiments and tests)."""
+    return dataclasses.replace(style, **{section: dataclasses.replace(getattr(style, section), **changes)})
