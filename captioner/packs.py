@@ -334,7 +334,7 @@ class OnnxClassifier:
             scale, zero_point = self.output_quant
             values = (values - zero_point) * scale
         if self.apply_sigmoid:
-            values = 1.0 / (1.0 + np.exp(-values))
+            values = 1.0 / (1.0 + np.exp(-np.clip(values, -60.0, 60.0)))
         return values.astype(np.float32)
 
 

@@ -130,7 +130,7 @@ def doorbell(rng):
     """Two-tone "ding-dong" chime (A5 then F5)."""
     ding = struck(880.0, 1.8, CHIME_BAR)
     dong = struck(698.5, 2.4, CHIME_BAR)
-    y = np.zeros(int(3.2 * SR))
+    y = np.zeros(int(2.8 * SR))
     overlay(y, ding, 0)
     overlay(y, dong, int(0.6 * SR))
     return fade(y, fade_out=0.3)
@@ -162,7 +162,7 @@ def dog_barks(rng):
     return room_reverb(y, rng, rt60=0.9, wet=0.4)
 
 
-def music(rng, dur=8.0):
+def music(rng, dur=7.5):
     """A soft, cheerful keyboard tune (I-vi-IV-V in C) as if from next door."""
     y = np.zeros(int(dur * SR))
     beat = 0.5
@@ -231,7 +231,7 @@ def smoke_alarm(rng):
     return np.concatenate(cycle + cycle[:-1])
 
 
-def siren(rng, dur=5.0):
+def siren(rng, dur=4.5):
     """Wailing emergency siren passing outside: slow pitch sweep, fading in and out."""
     t = seconds(dur)
     freq = 900 + 400 * np.sin(2 * np.pi * t / 2.0)
@@ -313,8 +313,8 @@ def compose(rng):
     t = s.say(t, B, "At least it is a cheerful tune.")
     t = max(t, bed) + 0.8
     t = s.sound(t, "telephone", telephone(rng), -22) + 0.6
-    t = s.say(t, B, "Let it ring. I will call back later.") + 0.8
-    t = s.sound(t, "glass", glass_break(rng), -19) + 0.7
+    t = s.say(t, B, "Let it ring. I will call back later.") + 0.6
+    t = s.sound(t, "glass", glass_break(rng), -19) + 0.6
     t = s.say(t, A, "Sorry, that was the blue glass.") + 0.8
     # The alarm goes on beeping while they talk over it.
     alarm = s.sound(t, "smoke_alarm", smoke_alarm(rng), -22)
@@ -323,7 +323,7 @@ def compose(rng):
     # A siren passes in the street and carries on under the last line.
     end = s.sound(t, "siren", siren(rng), -24)
     t = s.say(t + 1.8, A, "Not for us, I hope.")
-    return s, max(t, end) + 1.0
+    return s, max(t, end) + 0.7
 
 
 # ---------------------------------------------------------------- outputs

@@ -1,0 +1,26 @@
+# Two entry points: `make demo` captions the bundled demo video, `make test` runs the tests.
+# Both create the virtual environment in .venv on first use.
+PYTHON ?= python3
+VENV := .venv
+BIN := $(VENV)/bin
+READY := $(VENV)/.installed
+
+.PHONY: demo test bench clean
+
+$(READY): pyproject.toml
+	$(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install --quiet --upgrade pip
+	$(BIN)/python -m pip install --quiet -e '.[test]'
+	touch $(READY)
+
+demo: $(READY)
+	$(BIN)/captioner caption demo_media/demo.mp4 -o - --explain --force
+
+test: $(READY)
+	$(BIN)/python -m pytest
+
+bench: $(READY)
+	$(BIN)/python tests/benchmarks/speed.py
+
+clean:
+	rm -rf $(VENV) .pytest_cache
