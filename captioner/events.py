@@ -1,17 +1,18 @@
-"""Events: per-concept score curves -> smoothed, double-thresholded, timed SoundEvents."""
+"""Events: per-concept score curves -> bridged, double-thresholded, timed SoundEvents."""
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
-from scipy.ndimage import median_filter
+from scipy.ndimage import maximum_filter1d, median_filter
 
 from .scores import ScoreTrack
 from .style import Detection
 from .vocabulary import ClassEntry, Kind, Vocabulary
 
 _NEVER_CAPTIONED = (Kind.SPEECH, Kind.IGNORE)
+LASTING = (Kind.CONTINUOUS, Kind.MUSIC, Kind.AMBIENCE)
 
 
 @dataclass(frozen=True, slots=True)
@@ -71,6 +72,20 @@ def hysteresis(curve: np.ndarray, onset: float, offset: float) -> list[tuple[int
     return [(int(a), int(b)) for a, b in zip(edges[::2], edges[1::2]) if curve[a:b].max() >= onset]
 
 
+def bridge(curve: np.ndarray, patches: int) -> np.ndarray:
+    """Running maximum over `patches` patches centred on each one (1 = unchanged).
+
+    Frame scores of a weakly trained classifier flicker: an alarm or a ringing phone often
+    scores high in every other patch only. The running maximum keeps such a sound one run
+    (and reaches back one patch towards its true start) without ever erasing a short peak,
+    which a median filter would do.
+
+    >>> bridge(np.array([0.0, 0.8, 0.0, 0.7, 0.0, 0.0]), 3).tolist()
+    [0.8, 0.8, 0.8, 0.7, 0.7, 0.0]
+    """
+    return maximum_filter1d(curve, size=patches, mode="nearest") if patches > 1 else curve
+
+
 def concept_curves(track: ScoreTrack, vocabulary: Vocabulary) -> dict[str, tuple[np.ndarray, tuple[ClassEntry, ...]]]:
     """Concept -> (max score over its classes per patch, its classes), captioned kinds only."""
     curves = {}
@@ -85,21 +100,25 @@ def concept_curves(track: ScoreTrack, vocabulary: Vocabulary) -> dict[str, tuple
 def detect_events(track: ScoreTrack, vocabulary: Vocabulary, settings: Detection) -> list[SoundEvent]:
     """Every concept occurrence in the track, sorted by start time.
 
-    Speech and ignored classes never become events. Times are refined to the nearest rise
-    in signal level when settings.onset_refine is on.
+    Speech and ignored classes never become events. Lasting kinds (continuous, music,
+    ambience) are median-filtered over settings.median_ms; short sounds are not, because
+    a median over a few patches erases a sound that fills one or two patches. Every curve
+    is then bridged over settings.bridge_ms and double-thresholded. Onsets move to the
+    nearest rise in signal level when settings.onset_refine is on.
     """
     kernel = median_patches(settings.median_ms, track.hop_ms)
+    span = median_patches(settings.bridge_ms, track.hop_ms)
     found: list[SoundEvent] = []
     for concept, (curve, entries) in concept_curves(track, vocabulary).items():
-        smooth = median_filter(curve, size=kernel, mode="nearest") if kernel > 1 else curve
-        runs = hysteresis(smooth, settings.onset_threshold, settings.offset_threshold)
+        smooth = median_filter(curve, size=kernel, mode="nearest") if kernel > 1 and entries[0].kind in LASTING else curve
+        runs = hysteresis(bridge(smooth, span), settings.onset_threshold, settings.offset_threshold)
         spans = _merge_runs([_run_to_ms(track, run) for run in runs], settings.merge_gap_ms)
+        columns = [e.index for e in entries]
         for start_ms, end_ms, first, last in spans:
             if end_ms - start_ms < settings.min_event_ms:
                 continue
             if settings.onset_refine:
-                start_ms = refine_onset(track, start_ms)
-            columns = [e.index for e in entries]
+                start_ms = refine_onset(track, start_ms, first, end_ms)
             window = track.scores[first:last, columns]
             best = entries[int(np.argmax(window.sum(axis=0)))]
             level, background = _levels(track, start_ms, end_ms)
@@ -122,13 +141,7 @@ def detect_events(track: ScoreTrack, vocabulary: Vocabulary, settings: Detection
                 )
             )
     found.sort(key=lambda e: (e.start_ms, -e.priority, e.concept))
-    return [_with_id(e, i) for i, e in enumerate(found, start=1)]
-
-
-def _with_id(event: SoundEvent, number: int) -> SoundEvent:
-    from dataclasses import replace
-
-    return replace(event, event_id=f"e{number:04d}")
+    return [replace(e, event_id=f"e{number:04d}") for number, e in enumerate(found, start=1)]
 
 
 def _run_to_ms(track: ScoreTrack, run: tuple[int, int]) -> tuple[int, int, int, int]:
@@ -140,7 +153,7 @@ def _run_to_ms(track: ScoreTrack, run: tuple[int, int]) -> tuple[int, int, int, 
     the run begins.
     """
     first, last = run
-    overlap = track.patch_ms - track.hop_ms
+    overlap = max(0, track.patch_ms - track.hop_ms)
     start = int(track.patch_start_ms(first)) + (overlap if first > 0 else 0)
     end = int(track.patch_start_ms(last - 1)) + (track.hop_ms if last < track.n_patches else track.patch_ms)
     end = min(max(end, start + track.hop_ms), max(track.duration_ms, start + track.hop_ms))
@@ -172,20 +185,23 @@ def _levels(track: ScoreTrack, start_ms: int, end_ms: int) -> tuple[float, float
     return level, background
 
 
-def refine_onset(track: ScoreTrack, start_ms: int, search_ms: int = 700) -> int:
-    """Move an onset to the steepest rise in signal level within +-search_ms.
+def refine_onset(track: ScoreTrack, start_ms: int, first_patch: int, end_ms: int) -> int:
+    """Move an onset to the steepest rise in signal level inside the first active patch.
 
-    The level curve is smoothed over 50 ms so single-frame clicks do not win; the onset
-    moves only where the rise is at least 6 dB, otherwise it stays put.
+    The sound is somewhere in that patch, so the search covers the patch's span (and never
+    reaches the event's end). The level curve is smoothed over 50 ms so single-frame clicks
+    do not win; the onset moves only where the rise is at least 6 dB, otherwise it stays.
     """
-    first = max(0, int((start_ms - search_ms) / track.frame_ms))
-    segment = _frames(track, first * track.frame_ms, start_ms + search_ms)
-    if segment.size < 10:
-        return start_ms
+    low = int(track.patch_start_ms(first_patch))
+    high = min(low + track.patch_ms, end_ms - 1)
+    first = int(low / track.frame_ms)
+    segment = _frames(track, first * track.frame_ms, high)
     width = 5
+    if segment.size < 2 * width:
+        return start_ms
     smooth = np.convolve(segment, np.ones(width) / width, mode="same")
     rise = smooth[width:] - smooth[:-width]
     best = int(np.argmax(rise))
     if rise[best] < 6.0:
         return start_ms
-    return max(0, round((first + best + width // 2) * track.frame_ms))
+    return max(0, min(round((first + best + width // 2) * track.frame_ms), end_ms - 1))

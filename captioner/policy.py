@@ -1,19 +1,35 @@
 """Policy: decide which detected events become captions, and record why for each one.
 
-Rules run in a fixed order; the first rule that drops an event names the decision.
+Rules run in a fixed order; the first rule that drops an event names the decision:
+
+    confidence, duration, salience  -- the event alone is too weak to caption
+    evidence   -- no signal energy backs the claim (near-silence, or not above the background)
+    parent     -- a confident, more specific concept covers it (vehicle under car horn),
+                  or it is an unsure child that its surer parent already names
+    music      -- a mood/genre/singing detail that is not confident enough to word the music
+    sibling    -- another refinement of the same parent scored higher on the same sound
+    dialogue   -- it sits under dialogue and is too unimportant or too unsure for that
+    repeat     -- the same concept again within the cooldown: joined to the earlier event
+    density    -- more cues per minute than the style allows; the least salient go
+
+Each rule has a setting in `Selection` that switches it off.
 """
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, replace
 from typing import Literal
 
 from .dialogue import overlap_ms
-from .events import SoundEvent, Span
+from .events import LASTING, SoundEvent, Span
 from .style import Selection
 from .vocabulary import Kind
 
-Rule = Literal["kept", "confidence", "duration", "evidence", "parent", "dialogue", "repeat", "density", "layout"]
+Rule = Literal[
+    "kept", "confidence", "duration", "salience", "evidence", "parent", "music", "sibling", "dialogue", "repeat", "density", "layout"
+]
+_Drop = Callable[[SoundEvent, Rule, str], None]
 
 
 @dataclass(frozen=True, slots=True)
@@ -28,96 +44,190 @@ class Decision:
 
 @dataclass(frozen=True, slots=True)
 class Selected:
-    """The kept events (possibly extended by joins) and a decision for every event."""
+    """The kept events (possibly extended, reworded or moved) and a decision for every event."""
 
     kept: tuple[SoundEvent, ...]
     decisions: tuple[Decision, ...]
 
 
-def salience(event: SoundEvent) -> float:
+def salience(event: SoundEvent, settings: Selection = Selection()) -> float:
     """How much a viewer needs this sound: confidence, priority, loudness and length.
 
+    Peak score, plus priority_weight per priority step above 3 (alarms 5, room tone 1),
+    plus up to contrast_weight for 0..20 dB above the local background, plus up to
+    length_weight for 0..3 s of duration.
+
     >>> from captioner.vocabulary import Kind
-    >>> e = SoundEvent("e1", "dog", "Bark", "dog barking", "dog barks", Kind.TRANSIENT, 3, None, 0, 1000, 0.8, 0.6, -20.0, -40.0)
+    >>> e = SoundEvent("e1", "dog", "Bark", "dog barking", "dog barks", Kind.TRANSIENT, 3, None, 0, 1500, 0.8, 0.6, -20.0, -30.0)
     >>> round(salience(e), 3)
-    1.467
+    0.9
     """
     contrast = min(max(event.contrast_db, 0.0), 20.0) / 20.0
     length = min(event.duration_ms, 3000) / 3000
-    return event.peak_score + 0.15 * event.priority + 0.1 * contrast + 0.1 * length
+    return (
+        event.peak_score
+        + settings.priority_weight * (event.priority - 3)
+        + settings.contrast_weight * contrast
+        + settings.length_weight * length
+    )
 
 
 def select_events(events: list[SoundEvent], dialogue: tuple[Span, ...], settings: Selection) -> Selected:
-    """Apply the selection rules in order; see `Rule` for the names used in decisions."""
+    """Apply the selection rules in order; see the module docstring for the rule names."""
     decisions: dict[str, Decision] = {}
+    notes: dict[str, str] = {}
 
     def drop(event: SoundEvent, rule: Rule, detail: str) -> None:
         decisions[event.event_id] = Decision(event.event_id, False, rule, detail)
 
-    alive: list[SoundEvent] = []
+    alive = _weak(events, settings, drop)
+    if settings.parent_redundancy:
+        alive = _parents(alive, settings, drop, notes)
+    if settings.sibling_redundancy:
+        alive = _siblings(alive, drop)
+    if settings.dialogue_gate:
+        alive = _dialogue(alive, dialogue, settings, drop, notes)
+    if settings.cooldown_ms > 0:
+        alive = _repeats(alive, settings.cooldown_ms, drop)
+    kept = _cap_density(alive, settings, drop) if settings.max_cues_per_minute > 0 else alive
+    for event in kept:
+        extra = f"; {notes[event.event_id]}" if event.event_id in notes else ""
+        decisions[event.event_id] = Decision(event.event_id, True, "kept", f"salience {salience(event, settings):.2f}{extra}")
+    return Selected(tuple(sorted(kept, key=lambda e: (e.start_ms, e.event_id))), tuple(decisions[e.event_id] for e in events))
+
+
+def _weak(events: list[SoundEvent], settings: Selection, drop: _Drop) -> list[SoundEvent]:
+    """Confidence, duration, salience and the evidence gate: rules about one event alone."""
+    alive = []
     for event in events:
         if event.peak_score < settings.min_confidence:
             drop(event, "confidence", f"peak score {event.peak_score:.2f} < {settings.min_confidence}")
         elif event.duration_ms < settings.min_duration_ms:
             drop(event, "duration", f"{event.duration_ms} ms < {settings.min_duration_ms} ms")
-        elif event.level_db < settings.min_level_db:
+        elif salience(event, settings) < settings.min_salience:
+            drop(event, "salience", f"salience {salience(event, settings):.2f} < {settings.min_salience}")
+        elif settings.evidence_gate and event.level_db < settings.min_level_db:
             drop(event, "evidence", f"signal level {event.level_db:.0f} dBFS is near silence")
-        elif event.contrast_db < settings.min_contrast_db:
-            drop(event, "evidence", f"only {event.contrast_db:.1f} dB above the background")
+        elif settings.evidence_gate and event.contrast_db < settings.min_contrast_db:
+            drop(event, "evidence", f"only {event.contrast_db:+.1f} dB against the background")
         else:
             alive.append(event)
-
-    if settings.parent_redundancy:
-        children = [e for e in alive if e.parent]
-        survivors = []
-        for event in alive:
-            cover = next((c for c in children if c.parent == event.concept and _overlaps(c, event)), None)
-            if cover is not None:
-                drop(event, "parent", f"covered by the more specific {cover.concept} ({cover.event_id})")
-            else:
-                survivors.append(event)
-        alive = survivors
-
-    survivors = []
-    for event in alive:
-        shared = overlap_ms(event.start_ms, event.end_ms, dialogue)
-        if shared * 2 <= event.duration_ms:
-            survivors.append(event)
-        elif event.priority < settings.dialogue_min_priority and event.kind is not Kind.MUSIC:
-            drop(event, "dialogue", f"priority {event.priority} sound under dialogue")
-        elif event.peak_score < settings.dialogue_confidence:
-            drop(event, "dialogue", f"under dialogue and peak score {event.peak_score:.2f} < {settings.dialogue_confidence}")
-        else:
-            survivors.append(event)
-    alive = survivors
-
-    joined: list[SoundEvent] = []
-    for event in alive:
-        earlier = next((k for k in reversed(joined) if k.concept == event.concept and event.start_ms - k.end_ms < settings.cooldown_ms), None)
-        if earlier is None:
-            joined.append(event)
-            continue
-        index = joined.index(earlier)
-        joined[index] = replace(earlier, end_ms=max(earlier.end_ms, event.end_ms), peak_score=max(earlier.peak_score, event.peak_score))
-        drop(event, "repeat", f"joined to {earlier.event_id}, the same sound {event.start_ms - earlier.end_ms} ms earlier")
-
-    kept = _cap_density(joined, settings.max_cues_per_minute, drop)
-    for event in kept:
-        decisions[event.event_id] = Decision(event.event_id, True, "kept", f"salience {salience(event):.2f}")
-    ordered = tuple(decisions[e.event_id] for e in events)
-    return Selected(tuple(kept), ordered)
+    return alive
 
 
 def _overlaps(a: SoundEvent, b: SoundEvent) -> bool:
     return a.start_ms < b.end_ms and b.start_ms < a.end_ms
 
 
-def _cap_density(events: list[SoundEvent], per_minute: int, drop: object) -> list[SoundEvent]:
-    """Within any 60 s window keep at most `per_minute` events, the most salient ones."""
+def _shared_ms(a: SoundEvent, b: SoundEvent) -> int:
+    return max(0, min(a.end_ms, b.end_ms) - max(a.start_ms, b.start_ms))
+
+
+def _parents(alive: list[SoundEvent], settings: Selection, drop: _Drop, notes: dict[str, str]) -> list[SoundEvent]:
+    """Parent/child redundancy, and music wording from a confident mood, genre or singing child.
+
+    A child at least child_confidence sure replaces an overlapping parent. A less sure
+    child that its parent outscores is dropped instead: the broader name is the safer one.
+    Music is special: the music event keeps its own span and takes the child's wording
+    when the child reaches music_detail_confidence.
+    """
+    by_id = {e.event_id: e for e in alive}
+    gone: set[str] = set()
+    for child in sorted((e for e in alive if e.parent), key=lambda e: -e.peak_score):
+        if child.event_id in gone:
+            continue
+        for parent in [e for e in alive if e.concept == child.parent and e.event_id not in gone and _overlaps(e, child)]:
+            if parent.kind is Kind.MUSIC and child.kind is Kind.MUSIC:
+                gone.add(child.event_id)
+                if child.peak_score >= settings.music_detail_confidence:
+                    current = by_id[parent.event_id]
+                    if current.label == parent.label:  # the first confident detail wins
+                        by_id[parent.event_id] = replace(current, label=child.label, phrase=child.phrase, phrase_present=child.phrase_present)
+                        notes[parent.event_id] = f"worded by {child.concept} ({child.event_id}, {child.peak_score:.2f})"
+                    drop(child, "music", f"wording given to the music cue {parent.event_id}")
+                else:
+                    drop(child, "music", f"{child.label} {child.peak_score:.2f} < {settings.music_detail_confidence}: plain music wording")
+                break
+            if child.peak_score >= settings.child_confidence:
+                gone.add(parent.event_id)
+                drop(parent, "parent", f"covered by the more specific {child.concept} ({child.event_id})")
+            elif parent.peak_score >= child.peak_score:
+                gone.add(child.event_id)
+                drop(child, "parent", f"unsure ({child.peak_score:.2f}); the broader {parent.concept} ({parent.event_id}) names it")
+                break
+    return [by_id[e.event_id] for e in alive if e.event_id not in gone]
+
+
+def _siblings(alive: list[SoundEvent], drop: _Drop) -> list[SoundEvent]:
+    """Refinements of the same parent that share most of their time are one sound, named once."""
+    gone: set[str] = set()
+    for event in sorted(alive, key=lambda e: -e.peak_score):
+        if event.event_id in gone or event.parent is None:
+            continue
+        for other in alive:
+            if other is event or other.event_id in gone or other.parent != event.parent:
+                continue
+            if _shared_ms(event, other) * 2 >= min(event.duration_ms, other.duration_ms) and other.peak_score <= event.peak_score:
+                gone.add(other.event_id)
+                drop(other, "sibling", f"same sound as {event.concept} ({event.event_id}), which scored higher")
+    return [e for e in alive if e.event_id not in gone]
+
+
+def _dialogue(alive: list[SoundEvent], dialogue: tuple[Span, ...], settings: Selection, drop: _Drop, notes: dict[str, str]) -> list[SoundEvent]:
+    """Sounds under dialogue: drop the unimportant and the unsure; move short ones into a gap.
+
+    Music is exempt from the priority test (it is captioned once, at its onset, even
+    when it starts under speech). A kept short event whose onset lies in dialogue moves
+    to the end of that dialogue span when the gap starts within gap_shift_ms.
+    """
+    survivors = []
+    for event in alive:
+        shared = overlap_ms(event.start_ms, event.end_ms, dialogue)
+        if shared * 2 > event.duration_ms:
+            if event.priority < settings.dialogue_min_priority and event.kind is not Kind.MUSIC:
+                drop(event, "dialogue", f"priority {event.priority} sound under dialogue")
+                continue
+            if event.peak_score < settings.dialogue_confidence:
+                drop(event, "dialogue", f"under dialogue and peak score {event.peak_score:.2f} < {settings.dialogue_confidence}")
+                continue
+        survivors.append(_into_gap(event, dialogue, settings, notes))
+    return survivors
+
+
+def _into_gap(event: SoundEvent, dialogue: tuple[Span, ...], settings: Selection, notes: dict[str, str]) -> SoundEvent:
+    if settings.gap_shift_ms <= 0 or event.kind in LASTING or event.duration_ms >= settings.short_event_ms:
+        return event
+    span = next((s for s in dialogue if s.start_ms <= event.start_ms < s.end_ms), None)
+    if span is None:
+        return event
+    shift = span.end_ms - event.start_ms
+    if shift > settings.gap_shift_ms:
+        return event
+    notes[event.event_id] = f"moved {shift} ms later into a dialogue gap"
+    return replace(event, start_ms=event.start_ms + shift, end_ms=max(event.end_ms, event.start_ms + shift + 1))
+
+
+def _repeats(alive: list[SoundEvent], cooldown_ms: int, drop: _Drop) -> list[SoundEvent]:
+    """The same concept again within the cooldown extends the earlier event instead of a new cue."""
+    joined: list[SoundEvent] = []
+    for event in sorted(alive, key=lambda e: e.start_ms):
+        index = next((i for i in range(len(joined) - 1, -1, -1) if joined[i].concept == event.concept and event.start_ms - joined[i].end_ms < cooldown_ms), None)
+        if index is None:
+            joined.append(event)
+            continue
+        earlier = joined[index]
+        joined[index] = replace(earlier, end_ms=max(earlier.end_ms, event.end_ms), peak_score=max(earlier.peak_score, event.peak_score))
+        drop(event, "repeat", f"joined to {earlier.event_id}, the same sound {max(0, event.start_ms - earlier.end_ms)} ms after it")
+    return joined
+
+
+def _cap_density(events: list[SoundEvent], settings: Selection, drop: _Drop) -> list[SoundEvent]:
+    """Within any 60 s window keep at most max_cues_per_minute events, the most salient ones."""
+    limit = settings.max_cues_per_minute
     kept = list(events)
-    for event in sorted(events, key=salience):
+    for event in sorted(events, key=lambda e: salience(e, settings)):
         window = [k for k in kept if abs(k.start_ms - event.start_ms) < 30000]
-        if len(window) > per_minute and event in kept:
+        if len(window) > limit and event in kept:
             kept.remove(event)
-            drop(event, "density", f"more than {per_minute} cues within a minute; less salient")  # type: ignore[operator]
+            drop(event, "density", f"more than {limit} cues within a minute; less salient")
     return kept

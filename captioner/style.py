@@ -49,7 +49,8 @@ class Detection:
     """Turning score curves into timed events."""
 
     patch_hop_ms: int = 480
-    median_ms: int = 1440  # median filter length on each concept's score curve
+    median_ms: int = 1440  # median filter on lasting sounds' score curves (0 = off)
+    bridge_ms: int = 1440  # running maximum that joins flickering patches (0 = off)
     onset_threshold: float = 0.25  # a concept becomes active above this ...
     offset_threshold: float = 0.12  # ... and stays active above this
     min_event_ms: int = 100
@@ -61,17 +62,28 @@ class Detection:
 
 @dataclass(frozen=True, slots=True)
 class Selection:
-    """Which detected events become cues."""
+    """Which detected events become cues; each rule can be switched off on its own."""
 
-    min_confidence: float = 0.3
+    min_confidence: float = 0.3  # peak classifier score an event needs
     min_duration_ms: int = 0
-    min_level_db: float = -55.0  # evidence gate: quieter than this is near-silence
+    min_salience: float = 0.0  # see policy.salience: confidence, priority, loudness, length
+    priority_weight: float = 0.1  # salience per priority step above 3
+    contrast_weight: float = 0.1  # salience for 20 dB above the local background
+    length_weight: float = 0.1  # salience for lasting 3 s or more
+    evidence_gate: bool = True  # a sound claim needs signal energy at that time
+    min_level_db: float = -55.0  # quieter than this is near-silence
     min_contrast_db: float = 3.0  # event level above its local background
+    parent_redundancy: bool = True  # a confident child replaces its parent (car horn > vehicle)
+    child_confidence: float = 0.5  # below this a child yields to an equally sure parent
+    sibling_redundancy: bool = True  # overlapping siblings are one sound: keep the surest
+    music_detail_confidence: float = 0.6  # mood/genre/singing wording only above this
+    dialogue_gate: bool = True
     dialogue_min_priority: int = 3  # under dialogue, lower priorities are dropped ...
     dialogue_confidence: float = 0.5  # ... and kept ones need this confidence
-    cooldown_ms: int = 10000  # same concept again within this joins the earlier cue
-    max_cues_per_minute: int = 12
-    parent_redundancy: bool = True
+    gap_shift_ms: int = 1000  # a short event under dialogue may move this far into a gap (0 = off)
+    short_event_ms: int = 2000  # only events shorter than this move
+    cooldown_ms: int = 10000  # same concept again within this joins the earlier cue (0 = off)
+    max_cues_per_minute: int = 12  # density cap, most salient kept (0 = no cap)
 
 
 @dataclass(frozen=True, slots=True)
@@ -104,7 +116,19 @@ _RANGES: dict[str, tuple[float, float]] = {
     "min_confidence": (0.0, 1.0),
     "dialogue_confidence": (0.0, 1.0),
     "dialogue_min_priority": (1, 6),
-    "max_cues_per_minute": (1, 60),
+    "max_cues_per_minute": (0, 60),
+    "bridge_ms": (0, 10000),
+    "min_salience": (0.0, 2.0),
+    "priority_weight": (0.0, 1.0),
+    "contrast_weight": (0.0, 1.0),
+    "length_weight": (0.0, 1.0),
+    "child_confidence": (0.0, 1.0),
+    "music_detail_confidence": (0.0, 1.0),
+    "gap_shift_ms": (0, 5000),
+    "short_event_ms": (0, 20000),
+    "cooldown_ms": (0, 120000),
+    "merge_gap_ms": (0, 10000),
+    "min_event_ms": (0, 10000),
     "min_level_db": (-120.0, 0.0),
     "min_contrast_db": (-60.0, 60.0),
 }

@@ -1,0 +1,384 @@
+"""Evaluation: caption quality of finished caption files against a user's own annotations.
+
+Definitions (all times in integer milliseconds):
+
+- A cue *names* a concept when its text contains one of the concept's keywords as a whole
+  word, ignoring case and markup tags.
+- A cue *matches* a truth event when it names the event's concept and its span overlaps the
+  event widened by the collar on both sides (touching ends do not overlap).
+- precision = matched cues / cues; recall = detected events (matched by at least one cue) /
+  events; F1 is their harmonic mean; a ratio with nothing to count is 0, and a mean with
+  nothing to average (onset error, redundancy, false alarms) is None.
+- redundancy = matched cues per detected event (1.0 = one cue per sound).
+- onset error = mean over detected events of |start of the earliest matching cue - onset|.
+- truth-free audio = whole annotated files with no truth events and a known duration; every
+  cue in them is a false alarm. Gaps between events inside annotated files are not counted,
+  because whether a cue there is wrong depends on sounds nobody annotated.
+- per concept, precision, false alarms and dialogue overlaps count the cues naming it.
+"""
+
+from __future__ import annotations
+
+import csv
+import math
+import re
+import warnings
+from collections.abc import Collection, Mapping, Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import yaml
+
+from .errors import CaptionerError, SubtitleError
+from .events import Span
+from .formats.subtitles import SubtitleCue, read_subtitles
+
+DEFAULT_COLLAR_MS = 1000
+CONCEPTS_BESIDE_TRUTH = "concepts.yaml"
+_TAG = re.compile(r"<[^>]*>")  # WebVTT markup such as <i> or <c.sound>
+
+
+class AnnotationError(CaptionerError):
+    """A truth, concept, dialogue, duration or score-map file cannot be used."""
+
+
+@dataclass(frozen=True, slots=True)
+class TruthEvent:
+    """One annotated sound in one file, in integer milliseconds."""
+
+    file: str
+    start_ms: int
+    end_ms: int
+    concept: str
+
+
+@dataclass(frozen=True, slots=True)
+class ConceptSpec:
+    """What counts as a correct caption for one truth concept."""
+
+    keywords: tuple[str, ...]
+    score_concepts: tuple[str, ...] = ()  # vocabulary concept ids whose scores stand for it (--scores)
+
+
+@dataclass(frozen=True, slots=True)
+class Quality:
+    """Caption-quality numbers for one concept or for all of them."""
+
+    events: int
+    detected_events: int
+    cues: int
+    matched_cues: int
+    precision: float
+    recall: float
+    f1: float
+    redundancy: float | None  # matched cues per detected event
+    onset_error_ms: float | None  # mean |earliest matching cue start - event onset|
+    false_alarm_cues: int  # cues in truth-free files
+    false_alarms_per_minute: float | None
+    cues_over_dialogue: int | None  # None when no dialogue file was given
+
+
+@dataclass(frozen=True, slots=True)
+class QualityReport:
+    """Everything `captioner evaluate` reports about caption quality."""
+
+    overall: Quality
+    concepts: dict[str, Quality]
+    files: int
+    collar_ms: int
+    truth_free_files: int
+    truth_free_ms: int
+    unnamed_cues: int  # cues naming no concept at all
+
+
+# ---------------------------------------------------------------- reading annotations
+
+
+def read_table(path: Path, columns: Sequence[str]) -> list[tuple[int, dict[str, str]]]:
+    """Rows of a CSV as (line number, {column: value}).
+
+    A first row naming all `columns` is a header and may add other columns in any order;
+    otherwise the first len(columns) cells are taken in that order. Blank lines and lines
+    starting with '#' are skipped.
+
+    Raises:
+        AnnotationError: missing or unreadable file, or a row with too few cells.
+    """
+    path = Path(path)
+    if not path.is_file():
+        raise AnnotationError(path, "file not found", "check the path")
+    try:
+        lines = path.read_text(encoding="utf-8-sig").splitlines()
+    except (OSError, UnicodeDecodeError) as exc:
+        raise AnnotationError(path, f"cannot read as UTF-8 text ({exc})", f"save it as a UTF-8 CSV with columns {','.join(columns)}") from exc
+    rows = [(number, cells) for number, cells in enumerate(csv.reader(lines), start=1) if cells and any(c.strip() for c in cells) and not cells[0].lstrip().startswith("#")]
+    positions = {name: index for index, name in enumerate(columns)}
+    if rows:
+        header = [cell.strip().lower() for cell in rows[0][1]]
+        if all(name in header for name in columns):
+            positions = {name: header.index(name) for name in columns}
+            rows = rows[1:]
+    needed = max(positions.values()) + 1
+    table = []
+    for number, cells in rows:
+        if len(cells) < needed:
+            raise AnnotationError(f"{path}:{number}", f"{len(cells)} column(s), expected {','.join(columns)}", "fix the row")
+        table.append((number, {name: cells[index].strip() for name, index in positions.items()}))
+    return table
+
+
+def _seconds_to_ms(value: str, where: str, column: str) -> int:
+    try:
+        seconds = float(value)
+    except ValueError:
+        seconds = math.nan
+    if not math.isfinite(seconds) or seconds < 0:
+        raise AnnotationError(where, f"{column}={value!r} is not a number of seconds >= 0", "fix the row")
+    return round(seconds * 1000)
+
+
+def _file_name(value: str, where: str) -> str:
+    if not value:
+        raise AnnotationError(where, "empty file name", "name the clip in the first column")
+    return value
+
+
+def read_truth(path: Path, concepts: Collection[str]) -> tuple[TruthEvent, ...]:
+    """Truth events from a CSV with columns file,onset,offset,concept (seconds).
+
+    Raises:
+        AnnotationError: missing file, bad number, offset <= onset, or a concept not in `concepts`.
+    """
+    events = []
+    for number, row in read_table(path, ("file", "onset", "offset", "concept")):
+        where = f"{path}:{number}"
+        start = _seconds_to_ms(row["onset"], where, "onset")
+        end = _seconds_to_ms(row["offset"], where, "offset")
+        if end <= start:
+            raise AnnotationError(where, f"offset {row['offset']} is not after onset {row['onset']}", "fix the row; an event needs a positive length")
+        if row["concept"] not in concepts:
+            raise AnnotationError(where, f"unknown concept {row['concept']!r}", "add it with its caption keywords to the concept file, or correct the row")
+        events.append(TruthEvent(_file_name(row["file"], where), start, end, row["concept"]))
+    return tuple(events)
+
+
+def read_dialogue(path: Path) -> dict[str, tuple[Span, ...]]:
+    """Speech spans per file from a CSV with columns file,onset,offset (seconds).
+
+    Raises:
+        AnnotationError: missing file, bad number or offset <= onset.
+    """
+    spans: dict[str, list[Span]] = {}
+    for number, row in read_table(path, ("file", "onset", "offset")):
+        where = f"{path}:{number}"
+        start = _seconds_to_ms(row["onset"], where, "onset")
+        end = _seconds_to_ms(row["offset"], where, "offset")
+        if end <= start:
+            raise AnnotationError(where, f"offset {row['offset']} is not after onset {row['onset']}", "fix the row")
+        spans.setdefault(_file_name(row["file"], where), []).append(Span(start, end))
+    return {name: tuple(group) for name, group in spans.items()}
+
+
+def read_durations(path: Path) -> dict[str, int]:
+    """File durations in ms from a CSV with columns file,duration (seconds).
+
+    Raises:
+        AnnotationError: missing file, bad number or a duration of zero.
+    """
+    durations = {}
+    for number, row in read_table(path, ("file", "duration")):
+        where = f"{path}:{number}"
+        duration = _seconds_to_ms(row["duration"], where, "duration")
+        if duration <= 0:
+            raise AnnotationError(where, f"duration {row['duration']} is not positive", "fix the row")
+        durations[_file_name(row["file"], where)] = duration
+    return durations
+
+
+def _yaml(path: Path) -> Any:
+    path = Path(path)
+    if not path.is_file():
+        raise AnnotationError(path, "file not found", "check the path")
+    try:
+        return yaml.safe_load(path.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, yaml.YAMLError) as exc:
+        first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+        raise AnnotationError(path, f"not readable YAML ({first})", "fix the file") from exc
+
+
+def _strings(value: Any) -> tuple[str, ...] | None:
+    if isinstance(value, str) and value.strip():
+        return (value.strip(),)
+    if isinstance(value, list) and value and all(isinstance(v, (str, int)) and str(v).strip() for v in value):
+        return tuple(str(v).strip() for v in value)
+    return None
+
+
+def read_concepts(path: Path) -> dict[str, ConceptSpec]:
+    """Concept file: `concept: [keyword, ...]`, or `concept: {keywords: [...], score_concepts: [...]}`.
+
+    Raises:
+        AnnotationError: missing or malformed file.
+    """
+    data = _yaml(path)
+    if not isinstance(data, dict) or not data:
+        raise AnnotationError(path, "expected a mapping of concept -> list of caption keywords", "write lines like `dog_bark: [dog, barking]`")
+    concepts = {}
+    for concept, value in data.items():
+        spec = value if isinstance(value, dict) else {"keywords": value}
+        keywords = _strings(spec.get("keywords"))
+        scored = _strings(spec["score_concepts"]) if "score_concepts" in spec else ()
+        if keywords is None or scored is None or set(spec) - {"keywords", "score_concepts"}:
+            raise AnnotationError(path, f"concept {concept!r} needs a non-empty keyword list (and optionally score_concepts)", "write `concept: [keyword, ...]`")
+        concepts[str(concept)] = ConceptSpec(keywords, scored)
+    return concepts
+
+
+def find_caption_file(folder: Path, name: str) -> Path | None:
+    """The caption file for an annotated clip: NAME.vtt or NAME.srt (NAME without its media extension too)."""
+    stems = [name] + ([Path(name).stem] if Path(name).suffix else [])
+    for stem in stems:
+        for suffix in (".vtt", ".srt"):
+            if (folder / f"{stem}{suffix}").is_file():
+                return folder / f"{stem}{suffix}"
+    return None
+
+
+def read_caption_files(folder: Path, names: Sequence[str]) -> dict[str, tuple[SubtitleCue, ...]]:
+    """The cues of every annotated clip, read from the caption folder.
+
+    Raises:
+        SubtitleError: the folder or a clip's caption file is missing, or a file does not parse.
+    """
+    folder = Path(folder)
+    if not folder.is_dir():
+        raise SubtitleError(folder, "caption folder not found", "give the folder holding NAME.vtt or NAME.srt per annotated clip")
+    cues = {}
+    for name in names:
+        path = find_caption_file(folder, name)
+        if path is None:
+            raise SubtitleError(folder / f"{name}.vtt", "no caption file for this annotated clip (.vtt or .srt)", "caption the clip into this folder, or remove it from the annotation files")
+        cues[name] = read_subtitles(path)
+    return cues
+
+
+# ---------------------------------------------------------------- matching
+
+
+def keyword_pattern(keywords: Sequence[str]) -> re.Pattern[str]:
+    """One case-insensitive whole-word pattern for a concept's keywords.
+
+    >>> bool(keyword_pattern(["door"]).search("[Door slams]")), bool(keyword_pattern(["door"]).search("[doorbell]"))
+    (True, False)
+    """
+    alternatives = [r"\s+".join(re.escape(word) for word in keyword.split()) for keyword in sorted(keywords, key=len, reverse=True)]
+    return re.compile(r"(?<!\w)(?:" + "|".join(alternatives) + r")(?!\w)", re.IGNORECASE)
+
+
+def _overlaps(start_a: int, end_a: int, start_b: int, end_b: int) -> bool:
+    return start_a < end_b and end_a > start_b
+
+
+def _ratio(numerator: float, denominator: float) -> float:
+    return numerator / denominator if denominator else 0.0
+
+
+def _quality(events: int, detected: int, cues: int, matched: int, onset_errors: list[int], false_alarms: int, truth_free_ms: int, over_dialogue: int | None) -> Quality:
+    precision, recall = _ratio(matched, cues), _ratio(detected, events)
+    return Quality(
+        events=events,
+        detected_events=detected,
+        cues=cues,
+        matched_cues=matched,
+        precision=precision,
+        recall=recall,
+        f1=_ratio(2 * precision * recall, precision + recall),
+        redundancy=matched / detected if detected else None,
+        onset_error_ms=sum(onset_errors) / len(onset_errors) if onset_errors else None,
+        false_alarm_cues=false_alarms,
+        false_alarms_per_minute=false_alarms / (truth_free_ms / 60000) if truth_free_ms else None,
+        cues_over_dialogue=over_dialogue,
+    )
+
+
+def caption_quality(
+    events: Sequence[TruthEvent],
+    cues: Mapping[str, Sequence[SubtitleCue]],
+    keywords: Mapping[str, Sequence[str]],
+    *,
+    collar_ms: int = DEFAULT_COLLAR_MS,
+    durations_ms: Mapping[str, int] | None = None,
+    dialogue: Mapping[str, Sequence[Span]] | None = None,
+) -> QualityReport:
+    """Score the cues of every annotated file against its truth events.
+
+    `cues` holds one entry per annotated file (an empty tuple for an empty caption track);
+    `keywords` maps every concept to its caption keywords. Files with no events count as
+    truth-free audio when `durations_ms` knows their length (a warning names those it doesn't).
+    """
+    if collar_ms < 0:
+        raise ValueError(f"collar_ms={collar_ms} must be >= 0")
+    durations_ms = durations_ms or {}
+    patterns = {concept: keyword_pattern(words) for concept, words in keywords.items()}
+    by_file: dict[str, list[TruthEvent]] = {}
+    for event in events:
+        by_file.setdefault(event.file, []).append(event)
+    missing = sorted(set(by_file) - set(cues))
+    if missing:
+        raise ValueError(f"no cues given for annotated file(s) {missing[:3]}")
+
+    counts: dict[str, dict[str, int]] = {c: dict.fromkeys(("cues", "matched", "false_alarms", "over_dialogue"), 0) for c in keywords}
+    earliest: dict[TruthEvent, int] = {}  # detected event -> start of its earliest matching cue
+    total = dict.fromkeys(("cues", "matched", "false_alarms", "over_dialogue", "unnamed"), 0)
+    truth_free_ms, truth_free_files, unknown_length = 0, 0, []
+    for name, file_cues in cues.items():
+        file_events = by_file.get(name, [])
+        truth_free = not file_events and name in durations_ms
+        if truth_free:
+            truth_free_ms += durations_ms[name]
+            truth_free_files += 1
+        elif not file_events:
+            unknown_length.append(name)
+        speech = dialogue.get(name, ()) if dialogue is not None else ()
+        for cue in file_cues:
+            text = _TAG.sub(" ", cue.text)
+            named = [c for c, pattern in patterns.items() if pattern.search(text)]
+            over = any(_overlaps(cue.start_ms, cue.end_ms, s.start_ms, s.end_ms) for s in speech)
+            cue_matched = False
+            for concept in named:
+                hits = [e for e in file_events if e.concept == concept and _overlaps(cue.start_ms, cue.end_ms, e.start_ms - collar_ms, e.end_ms + collar_ms)]
+                for event in hits:
+                    earliest[event] = min(earliest.get(event, cue.start_ms), cue.start_ms)
+                counts[concept]["cues"] += 1
+                counts[concept]["matched"] += bool(hits)
+                counts[concept]["false_alarms"] += truth_free
+                counts[concept]["over_dialogue"] += over
+                cue_matched = cue_matched or bool(hits)
+            total["cues"] += 1
+            total["matched"] += cue_matched
+            total["false_alarms"] += truth_free
+            total["over_dialogue"] += over
+            total["unnamed"] += not named
+    if unknown_length:
+        warnings.warn(f"{len(unknown_length)} file(s) without truth events and without a known duration ({', '.join(unknown_length[:3])}) left out of the false-alarm rate; pass --durations", stacklevel=2)
+
+    with_dialogue = dialogue is not None
+    concepts = {}
+    for concept in keywords:
+        own = [e for e in events if e.concept == concept]
+        if not own and not counts[concept]["cues"]:
+            continue
+        found = [e for e in own if e in earliest]
+        concepts[concept] = _quality(
+            len(own), len(found), counts[concept]["cues"], counts[concept]["matched"],
+            [abs(earliest[e] - e.start_ms) for e in found],
+            counts[concept]["false_alarms"], truth_free_ms, counts[concept]["over_dialogue"] if with_dialogue else None,
+        )
+    found_all = [e for e in events if e in earliest]
+    overall = _quality(
+        len(events), len(found_all), total["cues"], total["matched"],
+        [abs(earliest[e] - e.start_ms) for e in found_all],
+        total["false_alarms"], truth_free_ms, total["over_dialogue"] if with_dialogue else None,
+    )
+    return QualityReport(overall, concepts, len(cues), collar_ms, truth_free_files, truth_free_ms, total["unnamed"])

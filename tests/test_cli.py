@@ -1,0 +1,93 @@
+"""The command line in-process through main(), plus one subprocess run on the demo video."""
+
+from __future__ import annotations
+
+import csv
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+import webvtt
+
+from captioner.cli import main
+from conftest import tone, write_wav
+
+DEMO = Path(__file__).resolve().parent.parent / "demo_media"
+
+
+def _error_line(capsys: pytest.CaptureFixture[str]) -> str:
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1, err  # one clear line, no traceback
+    return err[0]
+
+
+def test_missing_input(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    assert main(["caption", str(tmp_path / "nope.mp4"), "--quiet"]) == 2
+    assert "nope.mp4: file not found" in _error_line(capsys)
+
+
+def test_not_media(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    fake = tmp_path / "fake.mkv"
+    fake.write_bytes(b"\x00" * 1000)
+    assert main(["caption", str(fake), "--quiet"]) == 2
+    assert "fake.mkv: not a readable media file" in _error_line(capsys)
+
+
+def test_unknown_style(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    assert main(["caption", str(write_wav(tmp_path / "a.wav", tone(1.0))), "--style", "nope"]) == 2
+    assert "nope: no such style" in _error_line(capsys)
+
+
+def test_malformed_style_file(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    style = tmp_path / "house.yaml"
+    style.write_text("layout: [unclosed\n")
+    assert main(["caption", str(write_wav(tmp_path / "a.wav", tone(1.0))), "--style", str(style)]) == 2
+    assert "house.yaml: malformed YAML" in _error_line(capsys)
+
+
+def test_existing_output_is_not_overwritten(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    audio = write_wav(tmp_path / "a.wav", tone(1.0))
+    edited = tmp_path / "a.vtt"
+    edited.write_text("WEBVTT\n\n00:00.000 --> 00:01.000\n[hand edit]\n")
+    assert main(["caption", str(audio), "--quiet"]) == 2
+    assert "a.vtt: already exists" in _error_line(capsys)
+    assert "[hand edit]" in edited.read_text()
+
+
+def test_unwritable_output_folder(tmp_path: Path, capsys: pytest.CaptureFixture[str], pack: object) -> None:
+    audio = write_wav(tmp_path / "a.wav", tone(1.0))
+    assert main(["caption", str(audio), "-o", str(tmp_path / "no" / "such" / "dir.vtt"), "--quiet"]) == 2
+    assert "does not exist" in _error_line(capsys)
+
+
+def test_caption_writes_a_valid_track_and_sidecar(tmp_path: Path, pack: object) -> None:
+    quiet = np.zeros(16000 * 2)
+    audio = write_wav(tmp_path / "beeps.wav", np.concatenate([quiet, tone(3.0, 1000.0), quiet]))
+    out, sidecar = tmp_path / "beeps.vtt", tmp_path / "beeps.json"
+    assert main(["caption", str(audio), "-o", str(out), "--events-json", str(sidecar), "--quiet"]) == 0
+    parsed = webvtt.read(str(out))
+    assert len(parsed) >= 1 and "beep" in parsed.captions[0].text.lower()
+    assert '"events"' in sidecar.read_text()
+    assert main(["caption", str(audio), "-o", str(out), "--quiet", "--force", "--format", "srt", "-o", str(tmp_path / "b.srt")]) == 0
+    assert (tmp_path / "b.srt").read_text().startswith("1\n00:00:0")
+
+
+def test_demo_video_yields_its_sounds_on_time(tmp_path: Path, pack: object) -> None:
+    """Subprocess run of the real command on the bundled demo; expected sounds within 1 s."""
+    out = tmp_path / "demo.vtt"
+    subprocess.run([sys.executable, "-m", "captioner", "caption", str(DEMO / "demo.mp4"), "-o", str(out), "--quiet"], check=True)
+    cues = [(c.start_in_seconds, c.end_in_seconds, c.text.lower()) for c in webvtt.read(str(out))]
+    truth = list(csv.DictReader((DEMO / "truth.csv").open()))
+    words = {"doorbell": "doorbell|bell|chime", "dog": "dog|bark", "telephone": "phone|ring", "music": "music", "smoke_alarm": "alarm|beep", "siren": "siren", "glass": "glass|clink|shatter"}
+    import re
+
+    found = set()
+    for event in truth:
+        onset, offset = float(event["onset"]), float(event["offset"])
+        pattern = re.compile(rf"\b({words[event['concept']]})")
+        # A cue counts when it names the sound and overlaps it widened by 1 s (cue-level collar).
+        if any(pattern.search(text) and start <= offset + 1 and end >= onset - 1 for start, end, text in cues):
+            found.add(event["concept"])
+    assert {"dog", "telephone", "music", "smoke_alarm"} <= found, (found, cues)
