@@ -321,15 +321,15 @@ def caption_quality(
         raise ValueError(f"collar_ms={collar_ms} must be >= 0")
     durations_ms = durations_ms or {}
     patterns = {concept: keyword_pattern(words) for concept, words in keywords.items()}
-    by_file: dict[str, list[TruthEvent]] = {}
-    for event in events:
-        by_file.setdefault(event.file, []).append(event)
+    by_file: dict[str, list[tuple[int, TruthEvent]]] = {}
+    for index, event in enumerate(events):
+        by_file.setdefault(event.file, []).append((index, event))
     missing = sorted(set(by_file) - set(cues))
     if missing:
         raise ValueError(f"no cues given for annotated file(s) {missing[:3]}")
 
     counts: dict[str, dict[str, int]] = {c: dict.fromkeys(("cues", "matched", "false_alarms", "over_dialogue"), 0) for c in keywords}
-    earliest: dict[TruthEvent, int] = {}  # detected event -> start of its earliest matching cue
+    earliest: dict[int, int] = {}  # index of a detected event -> start of its earliest matching cue
     total = dict.fromkeys(("cues", "matched", "false_alarms", "over_dialogue", "unnamed"), 0)
     truth_free_ms, truth_free_files, unknown_length = 0, 0, []
     for name, file_cues in cues.items():
@@ -347,9 +347,9 @@ def caption_quality(
             over = any(_overlaps(cue.start_ms, cue.end_ms, s.start_ms, s.end_ms) for s in speech)
             cue_matched = False
             for concept in named:
-                hits = [e for e in file_events if e.concept == concept and _overlaps(cue.start_ms, cue.end_ms, e.start_ms - collar_ms, e.end_ms + collar_ms)]
-                for event in hits:
-                    earliest[event] = min(earliest.get(event, cue.start_ms), cue.start_ms)
+                hits = [i for i, e in file_events if e.concept == concept and _overlaps(cue.start_ms, cue.end_ms, e.start_ms - collar_ms, e.end_ms + collar_ms)]
+                for index in hits:
+                    earliest[index] = min(earliest.get(index, cue.start_ms), cue.start_ms)
                 counts[concept]["cues"] += 1
                 counts[concept]["matched"] += bool(hits)
                 counts[concept]["false_alarms"] += truth_free
@@ -366,19 +366,155 @@ def caption_quality(
     with_dialogue = dialogue is not None
     concepts = {}
     for concept in keywords:
-        own = [e for e in events if e.concept == concept]
+        own = [i for i, e in enumerate(events) if e.concept == concept]
         if not own and not counts[concept]["cues"]:
             continue
-        found = [e for e in own if e in earliest]
+        found = [i for i in own if i in earliest]
         concepts[concept] = _quality(
             len(own), len(found), counts[concept]["cues"], counts[concept]["matched"],
-            [abs(earliest[e] - e.start_ms) for e in found],
+            [abs(earliest[i] - events[i].start_ms) for i in found],
             counts[concept]["false_alarms"], truth_free_ms, counts[concept]["over_dialogue"] if with_dialogue else None,
         )
-    found_all = [e for e in events if e in earliest]
     overall = _quality(
-        len(events), len(found_all), total["cues"], total["matched"],
-        [abs(earliest[e] - e.start_ms) for e in found_all],
+        len(events), len(earliest), total["cues"], total["matched"],
+        [abs(start - events[i].start_ms) for i, start in earliest.items()],
         total["false_alarms"], truth_free_ms, total["over_dialogue"] if with_dialogue else None,
     )
     return QualityReport(overall, concepts, len(cues), collar_ms, truth_free_files, truth_free_ms, total["unnamed"])
+
+
+# ---------------------------------------------------------------- from files to a report
+
+
+def concepts_path_for(truth_path: Path, concepts_path: Path | None) -> Path:
+    """The concept file given, else concepts.yaml beside the truth file.
+
+    Raises:
+        AnnotationError: none given and none beside the truth file.
+    """
+    if concepts_path is not None:
+        return Path(concepts_path)
+    beside = Path(truth_path).parent / CONCEPTS_BESIDE_TRUTH
+    if not beside.is_file():
+        raise AnnotationError(truth_path, f"no concept file given and no {CONCEPTS_BESIDE_TRUTH} beside it", "pass --concepts CONCEPTS.yaml mapping each concept to its caption keywords")
+    return beside
+
+
+def find_sidecar(folder: Path, name: str) -> Path | None:
+    """The JSON sidecar of an annotated clip in the caption folder: NAME.json or NAME.events.json."""
+    stems = [name] + ([Path(name).stem] if Path(name).suffix else [])
+    for stem in stems:
+        for suffix in (".json", ".events.json"):
+            if (Path(folder) / f"{stem}{suffix}").is_file():
+                return Path(folder) / f"{stem}{suffix}"
+    return None
+
+
+def read_json(path: Path) -> dict[str, Any]:
+    """A JSON object from a file.
+
+    Raises:
+        AnnotationError: unreadable, not JSON, or not an object.
+    """
+    import json
+
+    try:
+        data = json.loads(Path(path).read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, ValueError) as exc:
+        raise AnnotationError(path, f"not readable JSON ({str(exc).splitlines()[0] if str(exc) else type(exc).__name__})", "write it again with captioner caption --events-json") from exc
+    if not isinstance(data, dict):
+        raise AnnotationError(path, "not a captioner JSON sidecar", "write it again with captioner caption --events-json")
+    return data
+
+
+def sidecar_durations(folder: Path, names: Sequence[str]) -> dict[str, int]:
+    """Durations in ms of the clips whose sidecar in `folder` records one."""
+    durations = {}
+    for name in names:
+        path = find_sidecar(folder, name)
+        if path is not None:
+            duration = read_json(path).get("duration_ms")
+            if isinstance(duration, int) and duration > 0:
+                durations[name] = duration
+    return durations
+
+
+def evaluate_captions(
+    truth_path: Path,
+    captions_dir: Path,
+    *,
+    concepts_path: Path | None = None,
+    collar_ms: int = DEFAULT_COLLAR_MS,
+    dialogue_path: Path | None = None,
+    durations_path: Path | None = None,
+) -> QualityReport:
+    """Read the annotations and the caption folder, then score them with `caption_quality`.
+
+    The annotated clips are those named in the truth, durations or dialogue file; each needs a
+    caption file NAME.vtt or NAME.srt in `captions_dir`. Durations come from the durations file,
+    else from JSON sidecars (NAME.json or NAME.events.json) beside the captions.
+
+    Raises:
+        AnnotationError, SubtitleError: a missing or malformed input file.
+    """
+    if collar_ms < 0:
+        raise AnnotationError(f"--collar {collar_ms / 1000:g}", "the collar must not be negative", "pass a collar in seconds such as 1.0")
+    concepts = read_concepts(concepts_path_for(truth_path, concepts_path))
+    events = read_truth(truth_path, concepts)
+    dialogue = read_dialogue(dialogue_path) if dialogue_path else None
+    durations = read_durations(durations_path) if durations_path else {}
+    names = sorted({e.file for e in events} | set(durations) | set(dialogue or {}))
+    if not durations_path:
+        durations = sidecar_durations(captions_dir, [n for n in names if n not in {e.file for e in events}])
+    cues = read_caption_files(captions_dir, names)
+    keywords = {concept: spec.keywords for concept, spec in concepts.items()}
+    return caption_quality(events, cues, keywords, collar_ms=collar_ms, durations_ms=durations, dialogue=dialogue)
+
+
+# ---------------------------------------------------------------- output
+
+
+def _number(value: float | None, digits: int) -> str:
+    return "-" if value is None else f"{value:.{digits}f}"
+
+
+def quality_table(report: QualityReport) -> str:
+    """A plain-text table, one row per concept and an overall row."""
+    header = ("concept", "events", "found", "cues", "match", "prec", "recall", "F1", "cues/event", "onset err s", "false/min", "over dialogue")
+    rows = [header]
+    for name, q in [*sorted(report.concepts.items()), ("overall", report.overall)]:
+        rows.append((
+            name, str(q.events), str(q.detected_events), str(q.cues), str(q.matched_cues),
+            f"{q.precision:.3f}", f"{q.recall:.3f}", f"{q.f1:.3f}", _number(q.redundancy, 2),
+            _number(None if q.onset_error_ms is None else q.onset_error_ms / 1000, 2),
+            _number(q.false_alarms_per_minute, 2), "-" if q.cues_over_dialogue is None else str(q.cues_over_dialogue),
+        ))
+    widths = [max(len(row[i]) for row in rows) for i in range(len(header))]
+    lines = ["  ".join(cell.ljust(w) if i == 0 else cell.rjust(w) for i, (cell, w) in enumerate(zip(row, widths))) for row in rows]
+    lines.insert(1, "-" * len(lines[0]))
+    lines.insert(len(lines) - 1, "-" * len(lines[0]))
+    minutes = report.truth_free_ms / 60000
+    lines.append(
+        f"{report.files} file(s), collar {report.collar_ms / 1000:g} s; truth-free audio {minutes:.2f} min in {report.truth_free_files} file(s); "
+        f"{report.unnamed_cues} cue(s) name no concept"
+    )
+    return "\n".join(lines)
+
+
+def _rounded(quality: Quality) -> dict[str, Any]:
+    from dataclasses import asdict
+
+    return {key: round(value, 4) if isinstance(value, float) else value for key, value in asdict(quality).items()}
+
+
+def quality_json(report: QualityReport) -> dict[str, Any]:
+    """A JSON-ready report; `overall` holds f1, precision and recall among the rest."""
+    return {
+        "collar_ms": report.collar_ms,
+        "files": report.files,
+        "truth_free_files": report.truth_free_files,
+        "truth_free_ms": report.truth_free_ms,
+        "unnamed_cues": report.unnamed_cues,
+        "overall": _rounded(report.overall),
+        "concepts": {name: _rounded(q) for name, q in sorted(report.concepts.items())},
+    }

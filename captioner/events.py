@@ -33,6 +33,7 @@ class SoundEvent:
     mean_score: float
     level_db: float  # loudness of the event (dBFS, 90th percentile of frame levels)
     background_db: float  # loudness around it (dBFS, median of frames in a +-5 s window)
+    ancestors: tuple[str, ...] = ()  # parent, grandparent, ... (for redundancy between levels)
 
     @property
     def duration_ms(self) -> int:
@@ -97,6 +98,20 @@ def concept_curves(track: ScoreTrack, vocabulary: Vocabulary) -> dict[str, tuple
     return curves
 
 
+def ancestry(vocabulary: Vocabulary) -> dict[str, tuple[str, ...]]:
+    """Concept -> its chain of broader concepts, nearest first (e.g. dog -> pet, animal)."""
+    parents = {concept: entries[0].parent for concept, entries in vocabulary.concepts().items()}
+    chains = {}
+    for concept in parents:
+        chain: list[str] = []
+        step = parents[concept]
+        while step is not None and step not in chain and step != concept:
+            chain.append(step)
+            step = parents.get(step)
+        chains[concept] = tuple(chain)
+    return chains
+
+
 def detect_events(track: ScoreTrack, vocabulary: Vocabulary, settings: Detection) -> list[SoundEvent]:
     """Every concept occurrence in the track, sorted by start time.
 
@@ -108,6 +123,7 @@ def detect_events(track: ScoreTrack, vocabulary: Vocabulary, settings: Detection
     """
     kernel = median_patches(settings.median_ms, track.hop_ms)
     span = median_patches(settings.bridge_ms, track.hop_ms)
+    lineage = ancestry(vocabulary)
     found: list[SoundEvent] = []
     for concept, (curve, entries) in concept_curves(track, vocabulary).items():
         smooth = median_filter(curve, size=kernel, mode="nearest") if kernel > 1 and entries[0].kind in LASTING else curve
@@ -138,6 +154,7 @@ def detect_events(track: ScoreTrack, vocabulary: Vocabulary, settings: Detection
                     mean_score=float(curve[first:last].mean()),
                     level_db=level,
                     background_db=background,
+                    ancestors=lineage.get(concept, ()),
                 )
             )
     found.sort(key=lambda e: (e.start_ms, -e.priority, e.concept))

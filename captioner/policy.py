@@ -81,14 +81,14 @@ def select_events(events: list[SoundEvent], dialogue: tuple[Span, ...], settings
         decisions[event.event_id] = Decision(event.event_id, False, rule, detail)
 
     alive = _weak(events, settings, drop)
+    if settings.cooldown_ms > 0:
+        alive = _repeats(alive, settings.cooldown_ms, drop)
     if settings.parent_redundancy:
         alive = _parents(alive, settings, drop, notes)
     if settings.sibling_redundancy:
         alive = _siblings(alive, drop)
     if settings.dialogue_gate:
         alive = _dialogue(alive, dialogue, settings, drop, notes)
-    if settings.cooldown_ms > 0:
-        alive = _repeats(alive, settings.cooldown_ms, drop)
     kept = _cap_density(alive, settings, drop) if settings.max_cues_per_minute > 0 else alive
     for event in kept:
         extra = f"; {notes[event.event_id]}" if event.event_id in notes else ""
@@ -123,6 +123,10 @@ def _shared_ms(a: SoundEvent, b: SoundEvent) -> int:
     return max(0, min(a.end_ms, b.end_ms) - max(a.start_ms, b.start_ms))
 
 
+def _lineage(event: SoundEvent) -> tuple[str, ...]:
+    return event.ancestors or ((event.parent,) if event.parent else ())
+
+
 def _parents(alive: list[SoundEvent], settings: Selection, drop: _Drop, notes: dict[str, str]) -> list[SoundEvent]:
     """Parent/child redundancy, and music wording from a confident mood, genre or singing child.
 
@@ -133,10 +137,11 @@ def _parents(alive: list[SoundEvent], settings: Selection, drop: _Drop, notes: d
     """
     by_id = {e.event_id: e for e in alive}
     gone: set[str] = set()
-    for child in sorted((e for e in alive if e.parent), key=lambda e: -e.peak_score):
+    for child in sorted((e for e in alive if _lineage(e)), key=lambda e: -e.peak_score):
         if child.event_id in gone:
             continue
-        for parent in [e for e in alive if e.concept == child.parent and e.event_id not in gone and _overlaps(e, child)]:
+        lineage = _lineage(child)
+        for parent in [e for e in alive if e.concept in lineage and e.event_id not in gone and _overlaps(e, child)]:
             if parent.kind is Kind.MUSIC and child.kind is Kind.MUSIC:
                 gone.add(child.event_id)
                 if child.peak_score >= settings.music_detail_confidence:
