@@ -19,46 +19,30 @@ Definitions (all times in integer milliseconds):
 
 from __future__ import annotations
 
-import csv
-import math
 import re
 import warnings
-from collections.abc import Collection, Mapping, Sequence
-from dataclasses import dataclass
+from collections.abc import Mapping, Sequence
+from dataclasses import asdict, dataclass
 from pathlib import Path
 from typing import Any
 
-import yaml
-
-from .errors import CaptionerError, SubtitleError
 from .events import Span
-from .formats.subtitles import SubtitleCue, read_subtitles
+from .formats.annotations import (
+    AnnotationError,
+    TruthEvent,
+    annotated_files,
+    concepts_path_for,
+    read_caption_files,
+    read_concepts,
+    read_dialogue,
+    read_durations,
+    read_truth,
+    sidecar_durations,
+)
+from .formats.subtitles import SubtitleCue
 
 DEFAULT_COLLAR_MS = 1000
-CONCEPTS_BESIDE_TRUTH = "concepts.yaml"
 _TAG = re.compile(r"<[^>]*>")  # WebVTT markup such as <i> or <c.sound>
-
-
-class AnnotationError(CaptionerError):
-    """A truth, concept, dialogue, duration or score-map file cannot be used."""
-
-
-@dataclass(frozen=True, slots=True)
-class TruthEvent:
-    """One annotated sound in one file, in integer milliseconds."""
-
-    file: str
-    start_ms: int
-    end_ms: int
-    concept: str
-
-
-@dataclass(frozen=True, slots=True)
-class ConceptSpec:
-    """What counts as a correct caption for one truth concept."""
-
-    keywords: tuple[str, ...]
-    score_concepts: tuple[str, ...] = ()  # vocabulary concept ids whose scores stand for it (--scores)
 
 
 @dataclass(frozen=True, slots=True)
@@ -90,177 +74,6 @@ class QualityReport:
     truth_free_files: int
     truth_free_ms: int
     unnamed_cues: int  # cues naming no concept at all
-
-
-# ---------------------------------------------------------------- reading annotations
-
-
-def read_table(path: Path, columns: Sequence[str]) -> list[tuple[int, dict[str, str]]]:
-    """Rows of a CSV as (line number, {column: value}).
-
-    A first row naming all `columns` is a header and may add other columns in any order;
-    otherwise the first len(columns) cells are taken in that order. Blank lines and lines
-    starting with '#' are skipped.
-
-    Raises:
-        AnnotationError: missing or unreadable file, or a row with too few cells.
-    """
-    path = Path(path)
-    if not path.is_file():
-        raise AnnotationError(path, "file not found", "check the path")
-    try:
-        lines = path.read_text(encoding="utf-8-sig").splitlines()
-    except (OSError, UnicodeDecodeError) as exc:
-        raise AnnotationError(path, f"cannot read as UTF-8 text ({exc})", f"save it as a UTF-8 CSV with columns {','.join(columns)}") from exc
-    rows = [(number, cells) for number, cells in enumerate(csv.reader(lines), start=1) if cells and any(c.strip() for c in cells) and not cells[0].lstrip().startswith("#")]
-    positions = {name: index for index, name in enumerate(columns)}
-    if rows:
-        header = [cell.strip().lower() for cell in rows[0][1]]
-        if all(name in header for name in columns):
-            positions = {name: header.index(name) for name in columns}
-            rows = rows[1:]
-    needed = max(positions.values()) + 1
-    table = []
-    for number, cells in rows:
-        if len(cells) < needed:
-            raise AnnotationError(f"{path}:{number}", f"{len(cells)} column(s), expected {','.join(columns)}", "fix the row")
-        table.append((number, {name: cells[index].strip() for name, index in positions.items()}))
-    return table
-
-
-def _seconds_to_ms(value: str, where: str, column: str) -> int:
-    try:
-        seconds = float(value)
-    except ValueError:
-        seconds = math.nan
-    if not math.isfinite(seconds) or seconds < 0:
-        raise AnnotationError(where, f"{column}={value!r} is not a number of seconds >= 0", "fix the row")
-    return round(seconds * 1000)
-
-
-def _file_name(value: str, where: str) -> str:
-    if not value:
-        raise AnnotationError(where, "empty file name", "name the clip in the first column")
-    return value
-
-
-def read_truth(path: Path, concepts: Collection[str]) -> tuple[TruthEvent, ...]:
-    """Truth events from a CSV with columns file,onset,offset,concept (seconds).
-
-    Raises:
-        AnnotationError: missing file, bad number, offset <= onset, or a concept not in `concepts`.
-    """
-    events = []
-    for number, row in read_table(path, ("file", "onset", "offset", "concept")):
-        where = f"{path}:{number}"
-        start = _seconds_to_ms(row["onset"], where, "onset")
-        end = _seconds_to_ms(row["offset"], where, "offset")
-        if end <= start:
-            raise AnnotationError(where, f"offset {row['offset']} is not after onset {row['onset']}", "fix the row; an event needs a positive length")
-        if row["concept"] not in concepts:
-            raise AnnotationError(where, f"unknown concept {row['concept']!r}", "add it with its caption keywords to the concept file, or correct the row")
-        events.append(TruthEvent(_file_name(row["file"], where), start, end, row["concept"]))
-    return tuple(events)
-
-
-def read_dialogue(path: Path) -> dict[str, tuple[Span, ...]]:
-    """Speech spans per file from a CSV with columns file,onset,offset (seconds).
-
-    Raises:
-        AnnotationError: missing file, bad number or offset <= onset.
-    """
-    spans: dict[str, list[Span]] = {}
-    for number, row in read_table(path, ("file", "onset", "offset")):
-        where = f"{path}:{number}"
-        start = _seconds_to_ms(row["onset"], where, "onset")
-        end = _seconds_to_ms(row["offset"], where, "offset")
-        if end <= start:
-            raise AnnotationError(where, f"offset {row['offset']} is not after onset {row['onset']}", "fix the row")
-        spans.setdefault(_file_name(row["file"], where), []).append(Span(start, end))
-    return {name: tuple(group) for name, group in spans.items()}
-
-
-def read_durations(path: Path) -> dict[str, int]:
-    """File durations in ms from a CSV with columns file,duration (seconds).
-
-    Raises:
-        AnnotationError: missing file, bad number or a duration of zero.
-    """
-    durations = {}
-    for number, row in read_table(path, ("file", "duration")):
-        where = f"{path}:{number}"
-        duration = _seconds_to_ms(row["duration"], where, "duration")
-        if duration <= 0:
-            raise AnnotationError(where, f"duration {row['duration']} is not positive", "fix the row")
-        durations[_file_name(row["file"], where)] = duration
-    return durations
-
-
-def _yaml(path: Path) -> Any:
-    path = Path(path)
-    if not path.is_file():
-        raise AnnotationError(path, "file not found", "check the path")
-    try:
-        return yaml.safe_load(path.read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError, yaml.YAMLError) as exc:
-        first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-        raise AnnotationError(path, f"not readable YAML ({first})", "fix the file") from exc
-
-
-def _strings(value: Any) -> tuple[str, ...] | None:
-    if isinstance(value, str) and value.strip():
-        return (value.strip(),)
-    if isinstance(value, list) and value and all(isinstance(v, (str, int)) and str(v).strip() for v in value):
-        return tuple(str(v).strip() for v in value)
-    return None
-
-
-def read_concepts(path: Path) -> dict[str, ConceptSpec]:
-    """Concept file: `concept: [keyword, ...]`, or `concept: {keywords: [...], score_concepts: [...]}`.
-
-    Raises:
-        AnnotationError: missing or malformed file.
-    """
-    data = _yaml(path)
-    if not isinstance(data, dict) or not data:
-        raise AnnotationError(path, "expected a mapping of concept -> list of caption keywords", "write lines like `dog_bark: [dog, barking]`")
-    concepts = {}
-    for concept, value in data.items():
-        spec = value if isinstance(value, dict) else {"keywords": value}
-        keywords = _strings(spec.get("keywords"))
-        scored = _strings(spec["score_concepts"]) if "score_concepts" in spec else ()
-        if keywords is None or scored is None or set(spec) - {"keywords", "score_concepts"}:
-            raise AnnotationError(path, f"concept {concept!r} needs a non-empty keyword list (and optionally score_concepts)", "write `concept: [keyword, ...]`")
-        concepts[str(concept)] = ConceptSpec(keywords, scored)
-    return concepts
-
-
-def find_caption_file(folder: Path, name: str) -> Path | None:
-    """The caption file for an annotated clip: NAME.vtt or NAME.srt (NAME without its media extension too)."""
-    stems = [name] + ([Path(name).stem] if Path(name).suffix else [])
-    for stem in stems:
-        for suffix in (".vtt", ".srt"):
-            if (folder / f"{stem}{suffix}").is_file():
-                return folder / f"{stem}{suffix}"
-    return None
-
-
-def read_caption_files(folder: Path, names: Sequence[str]) -> dict[str, tuple[SubtitleCue, ...]]:
-    """The cues of every annotated clip, read from the caption folder.
-
-    Raises:
-        SubtitleError: the folder or a clip's caption file is missing, or a file does not parse.
-    """
-    folder = Path(folder)
-    if not folder.is_dir():
-        raise SubtitleError(folder, "caption folder not found", "give the folder holding NAME.vtt or NAME.srt per annotated clip")
-    cues = {}
-    for name in names:
-        path = find_caption_file(folder, name)
-        if path is None:
-            raise SubtitleError(folder / f"{name}.vtt", "no caption file for this annotated clip (.vtt or .srt)", "caption the clip into this folder, or remove it from the annotation files")
-        cues[name] = read_subtitles(path)
-    return cues
 
 
 # ---------------------------------------------------------------- matching
@@ -386,59 +199,6 @@ def caption_quality(
 # ---------------------------------------------------------------- from files to a report
 
 
-def concepts_path_for(truth_path: Path, concepts_path: Path | None) -> Path:
-    """The concept file given, else concepts.yaml beside the truth file.
-
-    Raises:
-        AnnotationError: none given and none beside the truth file.
-    """
-    if concepts_path is not None:
-        return Path(concepts_path)
-    beside = Path(truth_path).parent / CONCEPTS_BESIDE_TRUTH
-    if not beside.is_file():
-        raise AnnotationError(truth_path, f"no concept file given and no {CONCEPTS_BESIDE_TRUTH} beside it", "pass --concepts CONCEPTS.yaml mapping each concept to its caption keywords")
-    return beside
-
-
-def find_sidecar(folder: Path, name: str) -> Path | None:
-    """The JSON sidecar of an annotated clip in the caption folder: NAME.json or NAME.events.json."""
-    stems = [name] + ([Path(name).stem] if Path(name).suffix else [])
-    for stem in stems:
-        for suffix in (".json", ".events.json"):
-            if (Path(folder) / f"{stem}{suffix}").is_file():
-                return Path(folder) / f"{stem}{suffix}"
-    return None
-
-
-def read_json(path: Path) -> dict[str, Any]:
-    """A JSON object from a file.
-
-    Raises:
-        AnnotationError: unreadable, not JSON, or not an object.
-    """
-    import json
-
-    try:
-        data = json.loads(Path(path).read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError, ValueError) as exc:
-        raise AnnotationError(path, f"not readable JSON ({str(exc).splitlines()[0] if str(exc) else type(exc).__name__})", "write it again with captioner caption --events-json") from exc
-    if not isinstance(data, dict):
-        raise AnnotationError(path, "not a captioner JSON sidecar", "write it again with captioner caption --events-json")
-    return data
-
-
-def sidecar_durations(folder: Path, names: Sequence[str]) -> dict[str, int]:
-    """Durations in ms of the clips whose sidecar in `folder` records one."""
-    durations = {}
-    for name in names:
-        path = find_sidecar(folder, name)
-        if path is not None:
-            duration = read_json(path).get("duration_ms")
-            if isinstance(duration, int) and duration > 0:
-                durations[name] = duration
-    return durations
-
-
 def evaluate_captions(
     truth_path: Path,
     captions_dir: Path,
@@ -463,9 +223,10 @@ def evaluate_captions(
     events = read_truth(truth_path, concepts)
     dialogue = read_dialogue(dialogue_path) if dialogue_path else None
     durations = read_durations(durations_path) if durations_path else {}
-    names = sorted({e.file for e in events} | set(durations) | set(dialogue or {}))
+    names = annotated_files(events, durations, dialogue or {})
     if not durations_path:
-        durations = sidecar_durations(captions_dir, [n for n in names if n not in {e.file for e in events}])
+        with_events = {e.file for e in events}
+        durations = sidecar_durations(captions_dir, [n for n in names if n not in with_events])
     cues = read_caption_files(captions_dir, names)
     keywords = {concept: spec.keywords for concept, spec in concepts.items()}
     return caption_quality(events, cues, keywords, collar_ms=collar_ms, durations_ms=durations, dialogue=dialogue)
@@ -502,9 +263,7 @@ def quality_table(report: QualityReport) -> str:
 
 
 def _rounded(quality: Quality) -> dict[str, Any]:
-    from dataclasses import asdict
-
-    return {key: round(value, 4) if isinstance(value, float) else value for key, value in asdict(quality).items()}
+    return {key: round(value, 6) if isinstance(value, float) else value for key, value in asdict(quality).items()}
 
 
 def quality_json(report: QualityReport) -> dict[str, Any]:
