@@ -11,7 +11,7 @@ from ..pipeline import Captioned
 from ..vocabulary import Kind, Vocabulary
 
 SIDECAR_VERSION = 1
-_CURVE_FLOOR = 0.1  # concepts that never reach this score are left out to keep files small
+_CURVE_FLOOR = 0.02  # concepts that never reach this score are left out to keep files small
 
 
 def sidecar(result: Captioned, vocabulary: Vocabulary) -> dict[str, Any]:
