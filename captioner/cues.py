@@ -79,7 +79,9 @@ def build_cues(events: tuple[SoundEvent, ...], style: Style, duration_ms: int) -
     for event in events:
         lines = wrap(event_text(event, wording), layout)
         drafts.append(_timed(event.start_ms, event.end_ms, lines, (event.event_id,), layout, duration_ms))
-        lasting = event.kind in _LASTING and event.duration_ms >= wording.end_cue_min_ms
+        # Only a sound heard without a break gets an end cue: a join of separate occurrences
+        # has no single moment at which it stops.
+        lasting = event.kind in _LASTING and event.duration_ms >= wording.end_cue_min_ms and not event.joined
         if wording.end_cues and lasting and event.end_ms < duration_ms - layout.min_duration_ms:
             end_lines = wrap(end_text(event, wording), layout)
             drafts.append(_timed(event.end_ms, event.end_ms, end_lines, (event.event_id + "-end",), layout, duration_ms))
@@ -96,7 +98,18 @@ def _timed(start_ms: int, end_ms: int, lines: tuple[str, ...], ids: tuple[str, .
 
 
 def _resolve(drafts: list[Cue], layout: Layout) -> tuple[tuple[Cue, ...], tuple[Decision, ...]]:
-    """Merge overlapping cues into one multi-line cue where lines allow, else shift or drop."""
+    """Make cues that overlap share the screen; a text never appears more than
+    sync_tolerance_ms before its sound.
+
+    In this order of preference:
+    1. Sounds that start within sync_tolerance_ms of each other share one cue when their
+       lines fit within max_lines.
+    2. The earlier cue ends where the new one starts, when it has already been on screen
+       for min_duration_ms (the new sound is news; the old caption has been read).
+    3. The new cue waits until the earlier one ends, when that stays within sync_tolerance_ms.
+    4. Both texts show together from the new sound's onset, when the lines fit.
+    5. Otherwise the new cue is dropped, with a `layout` decision for its events.
+    """
     cues: list[Cue] = []
     dropped: list[Decision] = []
     for cue in drafts:
@@ -104,12 +117,20 @@ def _resolve(drafts: list[Cue], layout: Layout) -> tuple[tuple[Cue, ...], tuple[
             cues.append(cue)
             continue
         previous = cues[-1]
-        if len(previous.lines) + len(cue.lines) <= layout.max_lines:
+        fits = len(previous.lines) + len(cue.lines) <= layout.max_lines
+        both = Cue(cue.start_ms, min(max(previous.end_ms, cue.end_ms), cue.start_ms + layout.max_duration_ms), previous.lines + cue.lines, previous.event_ids + cue.event_ids)
+        if fits and cue.start_ms - previous.start_ms <= layout.sync_tolerance_ms:
             end = min(max(previous.end_ms, cue.end_ms), previous.start_ms + layout.max_duration_ms)
-            cues[-1] = Cue(previous.start_ms, end, previous.lines + cue.lines, previous.event_ids + cue.event_ids)
+            cues[-1] = replace(both, start_ms=previous.start_ms, end_ms=end)
+        elif cue.start_ms - previous.start_ms >= layout.min_duration_ms:
+            cues[-1] = replace(previous, end_ms=cue.start_ms)
+            cues.append(cue)
         elif previous.end_ms - cue.start_ms <= layout.sync_tolerance_ms:
             shift = previous.end_ms - cue.start_ms
             cues.append(replace(cue, start_ms=cue.start_ms + shift, end_ms=max(cue.end_ms, cue.start_ms + shift + layout.min_duration_ms)))
+        elif fits:
+            cues[-1] = replace(previous, end_ms=cue.start_ms)
+            cues.append(both)
         else:
             for event_id in (i for i in cue.event_ids if not i.endswith("-end")):
                 dropped.append(Decision(event_id, False, "layout", "no room on screen beside an earlier caption"))

@@ -34,6 +34,7 @@ class SoundEvent:
     level_db: float  # loudness of the event (dBFS, 90th percentile of frame levels)
     background_db: float  # loudness around it (dBFS, median of frames in a +-5 s window)
     ancestors: tuple[str, ...] = ()  # parent, grandparent, ... (for redundancy between levels)
+    joined: int = 0  # later occurrences folded into this one by the selection policy
 
     @property
     def duration_ms(self) -> int:
@@ -116,18 +117,23 @@ def detect_events(track: ScoreTrack, vocabulary: Vocabulary, settings: Detection
     """Every concept occurrence in the track, sorted by start time.
 
     Speech and ignored classes never become events. Lasting kinds (continuous, music,
-    ambience) are median-filtered over settings.median_ms; short sounds are not, because
+    ambience) may be median-filtered over settings.median_ms; short sounds never are, because
     a median over a few patches erases a sound that fills one or two patches. Every curve
-    is then bridged over settings.bridge_ms and double-thresholded. Onsets move to the
-    nearest rise in signal level when settings.onset_refine is on.
+    is then bridged over settings.bridge_ms and double-thresholded. A lasting sound must
+    be above the onset threshold for settings.lasting_min_active_ms in total: one patch of
+    "telephone" or "music" is more often a tonal blip than a ring or a tune. Onsets move to
+    the nearest rise in signal level when settings.onset_refine is on.
     """
     kernel = median_patches(settings.median_ms, track.hop_ms)
     span = median_patches(settings.bridge_ms, track.hop_ms)
     lineage = ancestry(vocabulary)
+    needed = max(1, -(-settings.lasting_min_active_ms // track.hop_ms))  # ceiling division
     found: list[SoundEvent] = []
     for concept, (curve, entries) in concept_curves(track, vocabulary).items():
         smooth = median_filter(curve, size=kernel, mode="nearest") if kernel > 1 and entries[0].kind in LASTING else curve
         runs = hysteresis(bridge(smooth, span), settings.onset_threshold, settings.offset_threshold)
+        if entries[0].kind in LASTING:
+            runs = [r for r in runs if int((smooth[r[0] : r[1]] >= settings.onset_threshold).sum()) >= needed]
         spans = _merge_runs([_run_to_ms(track, run) for run in runs], settings.merge_gap_ms)
         columns = [e.index for e in entries]
         for start_ms, end_ms, first, last in spans:
@@ -137,7 +143,7 @@ def detect_events(track: ScoreTrack, vocabulary: Vocabulary, settings: Detection
                 start_ms = refine_onset(track, start_ms, first, end_ms)
             window = track.scores[first:last, columns]
             best = entries[int(np.argmax(window.sum(axis=0)))]
-            level, background = _levels(track, start_ms, end_ms)
+            level, background = _levels(track, int(track.patch_start_ms(first)), end_ms)
             found.append(
                 SoundEvent(
                     event_id="",

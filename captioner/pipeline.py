@@ -1,10 +1,12 @@
-"""Pipeline: one media file -> score track -> events -> selection -> cues."""
+"""Pipeline: one media file -> score track -> events -> selection -> cues -> output texts."""
 
 from __future__ import annotations
 
+import dataclasses
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from . import media
 from .cues import Cue, build_cues
@@ -15,6 +17,10 @@ from .policy import Decision, select_events
 from .scores import ScoreTrack, compute_scores
 from .style import Style
 from .vocabulary import Vocabulary
+
+if TYPE_CHECKING:  # imported where used, as formats.sidecar imports this module
+    from .formats.merge import MergedTrack
+    from .formats.subtitles import SubtitleTrack
 
 
 @dataclass(frozen=True, slots=True)
@@ -78,3 +84,52 @@ def caption_file(
     track = compute_scores(chunks, pack.classifier, pack.manifest.frontend, hop_ms=style.detection.patch_hop_ms, on_progress=progress)
     spans, events, decisions, cues = caption_track(track, pack.vocabulary, style, dialogue=dialogue)
     return Captioned(path, style, pack.manifest.name, track, spans, dialogue_source, events, decisions, cues)
+
+
+@dataclass(frozen=True, slots=True)
+class Drafts:
+    """One captioned file as output texts, shared by `captioner caption` and batch runs.
+
+    `result` is the run with the merge's left-out sound cues recorded as decisions.
+    """
+
+    result: Captioned
+    vocabulary: Vocabulary
+    note: str  # the NOTE heading every track we write
+    track: str  # the sound captions in the chosen format (WebVTT carries its edit record)
+    merged: MergedTrack | None = None
+    merged_text: str | None = None  # dialogue plus sound cues, in the dialogue's format
+    dialogue_name: str = ""
+
+    def events_json(self) -> str:
+        """The JSON sidecar: every event, decision and score curve, plus the merge outcome."""
+        import json
+
+        from .formats import sidecar
+        from .formats.merge import outcomes_json
+
+        document = sidecar.sidecar(self.result, self.vocabulary)
+        if self.merged is not None:
+            document["merge"] = {"dialogue": self.dialogue_name, "strategy": self.result.style.merge.strategy, "sound_cues": outcomes_json(self.merged)}
+        return json.dumps(document, indent=1, ensure_ascii=False) + "\n"
+
+
+def draft_outputs(result: Captioned, vocabulary: Vocabulary, fmt: str, *, merge_with: SubtitleTrack | None = None, dialogue_name: str = "") -> Drafts:
+    """Render a captioned file: the sound track in `fmt` ("vtt" or "srt") and, given a
+    dialogue track, that track merged with the sound cues."""
+    from . import __version__, update
+    from .formats import WRITERS
+    from .formats.merge import dropped_decisions, dumps_merged, merge_tracks
+
+    note = (
+        f"Sound captions drafted by captioner {__version__} from {result.source.name}\n"
+        f"style {result.style.name}, model pack {result.pack_name}; review before publishing"
+    )
+    merged, merged_text = None, None
+    if merge_with is not None:
+        merged = merge_tracks(merge_with, result.cues, result.style)
+        drops = {d.event_id: d for d in dropped_decisions(merged)}
+        result = dataclasses.replace(result, decisions=tuple(drops.get(d.event_id, d) for d in result.decisions))
+        merged_text = dumps_merged(merged, note + f"\nmerged with the dialogue of {dialogue_name}")
+    track = update.recorded_vtt(result.cues, note) if fmt == "vtt" else WRITERS[fmt](result.cues, note)
+    return Drafts(result, vocabulary, note, track, merged, merged_text, dialogue_name)

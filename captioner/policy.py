@@ -81,12 +81,12 @@ def select_events(events: list[SoundEvent], dialogue: tuple[Span, ...], settings
         decisions[event.event_id] = Decision(event.event_id, False, rule, detail)
 
     alive = _weak(events, settings, drop)
-    if settings.cooldown_ms > 0:
-        alive = _repeats(alive, settings.cooldown_ms, drop)
     if settings.parent_redundancy:
         alive = _parents(alive, settings, drop, notes)
     if settings.sibling_redundancy:
         alive = _siblings(alive, drop)
+    if settings.cooldown_ms > 0:  # before the dialogue rule: a sound judged as a whole
+        alive = _repeats(alive, settings.cooldown_ms, drop)
     if settings.dialogue_gate:
         alive = _dialogue(alive, dialogue, settings, drop, notes)
     kept = _cap_density(alive, settings, drop) if settings.max_cues_per_minute > 0 else alive
@@ -115,10 +115,6 @@ def _weak(events: list[SoundEvent], settings: Selection, drop: _Drop) -> list[So
     return alive
 
 
-def _overlaps(a: SoundEvent, b: SoundEvent) -> bool:
-    return a.start_ms < b.end_ms and b.start_ms < a.end_ms
-
-
 def _shared_ms(a: SoundEvent, b: SoundEvent) -> int:
     return max(0, min(a.end_ms, b.end_ms) - max(a.start_ms, b.start_ms))
 
@@ -130,8 +126,10 @@ def _lineage(event: SoundEvent) -> tuple[str, ...]:
 def _parents(alive: list[SoundEvent], settings: Selection, drop: _Drop, notes: dict[str, str]) -> list[SoundEvent]:
     """Parent/child redundancy, and music wording from a confident mood, genre or singing child.
 
-    A child at least child_confidence sure replaces an overlapping parent. A less sure
-    child that its parent outscores is dropped instead: the broader name is the safer one.
+    A child replaces a parent it covers for at least half of the parent's time (a brief car
+    horn does not erase a long vehicle sound) when the child is at least child_confidence
+    sure or more salient than the parent. Otherwise the child is dropped: for an unsure
+    guess the broader name is the safer one.
     Music is special: the music event keeps its own span and takes the child's wording
     when the child reaches music_detail_confidence.
     """
@@ -141,7 +139,7 @@ def _parents(alive: list[SoundEvent], settings: Selection, drop: _Drop, notes: d
         if child.event_id in gone:
             continue
         lineage = _lineage(child)
-        for parent in [e for e in alive if e.concept in lineage and e.event_id not in gone and _overlaps(e, child)]:
+        for parent in [e for e in alive if e.concept in lineage and e.event_id not in gone and _shared_ms(e, child) > 0]:
             if parent.kind is Kind.MUSIC and child.kind is Kind.MUSIC:
                 gone.add(child.event_id)
                 if child.peak_score >= settings.music_detail_confidence:
@@ -153,10 +151,12 @@ def _parents(alive: list[SoundEvent], settings: Selection, drop: _Drop, notes: d
                 else:
                     drop(child, "music", f"{child.label} {child.peak_score:.2f} < {settings.music_detail_confidence}: plain music wording")
                 break
-            if child.peak_score >= settings.child_confidence:
+            if _shared_ms(parent, child) * 2 < parent.duration_ms:
+                continue
+            if child.peak_score >= settings.child_confidence or salience(child, settings) > salience(parent, settings):
                 gone.add(parent.event_id)
                 drop(parent, "parent", f"covered by the more specific {child.concept} ({child.event_id})")
-            elif parent.peak_score >= child.peak_score:
+            else:
                 gone.add(child.event_id)
                 drop(child, "parent", f"unsure ({child.peak_score:.2f}); the broader {parent.concept} ({parent.event_id}) names it")
                 break
@@ -221,7 +221,7 @@ def _repeats(alive: list[SoundEvent], cooldown_ms: int, drop: _Drop) -> list[Sou
             joined.append(event)
             continue
         earlier = joined[index]
-        joined[index] = replace(earlier, end_ms=max(earlier.end_ms, event.end_ms), peak_score=max(earlier.peak_score, event.peak_score))
+        joined[index] = replace(earlier, end_ms=max(earlier.end_ms, event.end_ms), peak_score=max(earlier.peak_score, event.peak_score), joined=earlier.joined + 1)
         drop(event, "repeat", f"joined to {earlier.event_id}, the same sound {max(0, event.start_ms - earlier.end_ms)} ms after it")
     return joined
 

@@ -1,6 +1,6 @@
 """Settings: one frozen `Style` holding every tunable value, loaded from a YAML preset or file.
 
-A style file has four sections (wording, layout, detection, selection); any field left out
+A style file has five sections (wording, layout, detection, selection, merge); any field left out
 keeps the default documented here. Unknown fields, wrong types and out-of-range values are
 rejected with the field's name and value.
 """
@@ -28,7 +28,7 @@ class Wording:
     tense: Literal["ing", "present"] = "ing"  # "dog barking" vs "dog barks"
     music_notes: bool = False  # "♪ upbeat music ♪" instead of brackets for music
     end_cues: bool = True  # "[rain stops]" when a long continuous sound ends
-    end_cue_min_ms: int = 8000  # only sounds at least this long get an end cue
+    end_cue_min_ms: int = 20000  # only sounds at least this long get an end cue
 
 
 @dataclass(frozen=True, slots=True)
@@ -49,8 +49,9 @@ class Detection:
     """Turning score curves into timed events."""
 
     patch_hop_ms: int = 480
-    median_ms: int = 1440  # median filter on lasting sounds' score curves (0 = off)
+    median_ms: int = 0  # median filter on lasting sounds' score curves (0 = off)
     bridge_ms: int = 1440  # running maximum that joins flickering patches (0 = off)
+    lasting_min_active_ms: int = 960  # lasting sounds need this long above onset_threshold
     onset_threshold: float = 0.25  # a concept becomes active above this ...
     offset_threshold: float = 0.12  # ... and stays active above this
     min_event_ms: int = 100
@@ -66,24 +67,40 @@ class Selection:
 
     min_confidence: float = 0.3  # peak classifier score an event needs
     min_duration_ms: int = 0
-    min_salience: float = 0.0  # see policy.salience: confidence, priority, loudness, length
-    priority_weight: float = 0.1  # salience per priority step above 3
+    min_salience: float = 0.55  # see policy.salience: confidence, priority, loudness, length
+    priority_weight: float = 0.15  # salience per priority step above 3
     contrast_weight: float = 0.1  # salience for 20 dB above the local background
     length_weight: float = 0.1  # salience for lasting 3 s or more
     evidence_gate: bool = True  # a sound claim needs signal energy at that time
     min_level_db: float = -55.0  # quieter than this is near-silence
     min_contrast_db: float = 3.0  # event level above its local background
     parent_redundancy: bool = True  # a confident child replaces its parent (car horn > vehicle)
-    child_confidence: float = 0.5  # below this a child yields to an equally sure parent
+    child_confidence: float = 0.6  # below this a child yields to an equally sure parent
     sibling_redundancy: bool = True  # overlapping siblings are one sound: keep the surest
     music_detail_confidence: float = 0.6  # mood/genre/singing wording only above this
     dialogue_gate: bool = True
     dialogue_min_priority: int = 3  # under dialogue, lower priorities are dropped ...
-    dialogue_confidence: float = 0.5  # ... and kept ones need this confidence
+    dialogue_confidence: float = 0.7  # ... and kept ones need this confidence
     gap_shift_ms: int = 1000  # a short event under dialogue may move this far into a gap (0 = off)
     short_event_ms: int = 2000  # only events shorter than this move
-    cooldown_ms: int = 10000  # same concept again within this joins the earlier cue (0 = off)
+    cooldown_ms: int = 20000  # same concept again within this joins the earlier cue (0 = off)
     max_cues_per_minute: int = 12  # density cap, most salient kept (0 = no cap)
+
+
+@dataclass(frozen=True, slots=True)
+class Merge:
+    """How sound cues join an existing dialogue track when they clash with a dialogue cue.
+
+    The strategy names the first thing tried; each falls back to the next one in the order
+    position -> combine -> move -> drop (a dropped cue is recorded with the reason).
+    position: WebVTT only, the sound cue keeps its time and moves to the screen edge away
+      from the dialogue (cue setting `line:`); SRT has no positioning and starts at combine.
+    combine: the sound becomes an extra line of the dialogue cue when the layout limits allow.
+    move: the sound cue moves into the nearest gap in the dialogue within sync_tolerance_ms.
+    drop: the sound cue is left out.
+    """
+
+    strategy: Literal["position", "combine", "move", "drop"] = "position"
 
 
 @dataclass(frozen=True, slots=True)
@@ -96,9 +113,10 @@ class Style:
     layout: Layout = field(default_factory=Layout)
     detection: Detection = field(default_factory=Detection)
     selection: Selection = field(default_factory=Selection)
+    merge: Merge = field(default_factory=Merge)
 
 
-_SECTIONS = {"wording": Wording, "layout": Layout, "detection": Detection, "selection": Selection}
+_SECTIONS = {"wording": Wording, "layout": Layout, "detection": Detection, "selection": Selection, "merge": Merge}
 _RANGES: dict[str, tuple[float, float]] = {
     "max_chars_per_line": (10, 80),
     "max_lines": (1, 4),
@@ -118,6 +136,8 @@ _RANGES: dict[str, tuple[float, float]] = {
     "dialogue_min_priority": (1, 6),
     "max_cues_per_minute": (0, 60),
     "bridge_ms": (0, 10000),
+    "lasting_min_active_ms": (0, 10000),
+    "end_cue_min_ms": (0, 600000),
     "min_salience": (0.0, 2.0),
     "priority_weight": (0.0, 1.0),
     "contrast_weight": (0.0, 1.0),

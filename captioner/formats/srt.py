@@ -22,3 +22,16 @@ def dumps(cues: Sequence[Cue], note: str = "") -> str:
         for number, cue in enumerate(cues, start=1)
     ]
     return srt_library.compose(subtitles, reindex=False)
+
+
+def dumps_text(cues: Sequence[tuple[int, int, str]]) -> str:
+    """SRT from (start_ms, end_ms, text) triples in time order; text is written as given.
+
+    >>> dumps_text([(1000, 2500, "Hello\\n[door slams]")])
+    '1\\n00:00:01,000 --> 00:00:02,500\\nHello\\n[door slams]\\n\\n'
+    """
+    subtitles = [
+        srt_library.Subtitle(index=number, start=timedelta(milliseconds=start), end=timedelta(milliseconds=end), content=text)
+        for number, (start, end, text) in enumerate(cues, start=1)
+    ]
+    return srt_library.compose(subtitles, reindex=False)

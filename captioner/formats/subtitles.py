@@ -1,17 +1,32 @@
-"""Reading existing subtitle files (WebVTT via webvtt-py, SRT via srt), text kept exactly."""
+"""Reading existing subtitle files (WebVTT via webvtt-py, SRT via srt), text kept exactly.
+
+Cue text keeps its inline tags, entities and line breaks as written; WebVTT cue settings
+and identifiers are kept too, and STYLE/REGION blocks are kept so a merged track can carry
+them. A malformed file raises one SubtitleError naming the file and the line.
+"""
 
 from __future__ import annotations
 
 import codecs
+import html
 import io
+import re
 import warnings
+from collections.abc import Sequence
 from dataclasses import dataclass
+from datetime import timedelta
 from pathlib import Path
+from typing import Literal
 
 import srt as srt_library
 import webvtt
 
 from ..errors import SubtitleError
+from ..events import Span
+
+SubtitleFormat = Literal["vtt", "srt"]
+_FIX = "fix that line or export the file again"
+_TAG = re.compile(r"<[^>]*>|\{\\[^}]*\}")  # WebVTT/SRT inline tags and SRT {\an8}-style codes
 
 
 @dataclass(frozen=True, slots=True)
@@ -25,39 +40,133 @@ class SubtitleCue:
     settings: str = ""
 
 
+@dataclass(frozen=True, slots=True)
+class SubtitleTrack:
+    """A whole subtitle file: its format, its cues in time order, and its WebVTT header blocks."""
+
+    name: str
+    format: SubtitleFormat
+    cues: tuple[SubtitleCue, ...]
+    header_blocks: tuple[str, ...] = ()  # STYLE and REGION blocks, as "STYLE\n..." text
+
+
 def decode_text(path: Path, raw: bytes) -> str:
-    """UTF-8 (with or without BOM), UTF-16 with BOM, else Latin-1 with a warning."""
+    """UTF-8 (with or without BOM), UTF-16 with BOM, else a single-byte code page with a warning.
+
+    The fallback tries Windows-1252 (curly quotes and dashes of older subtitle tools) and
+    then Latin-1, which decodes any byte.
+
+    >>> decode_text(Path("a.srt"), "café".encode("utf-16"))
+    'café'
+    """
     if raw.startswith(codecs.BOM_UTF16_LE) or raw.startswith(codecs.BOM_UTF16_BE):
-        return raw.decode("utf-16")
+        try:
+            return raw.decode("utf-16")
+        except UnicodeDecodeError as exc:
+            raise SubtitleError(path, "starts with a UTF-16 byte-order mark but is not valid UTF-16", "save it again as UTF-8") from exc
     try:
         return raw.decode("utf-8-sig")
     except UnicodeDecodeError:
-        warnings.warn(f"{path}: not UTF-8; read as Latin-1, check accented letters", stacklevel=2)
-        return raw.decode("latin-1")
+        pass
+    for legacy in ("cp1252", "latin-1"):
+        try:
+            text = raw.decode(legacy)
+        except UnicodeDecodeError:
+            continue
+        warnings.warn(f"{path}: not UTF-8; read as {legacy}, check accented letters (save it as UTF-8 to silence this)", stacklevel=2)
+        return text
+    raise AssertionError("latin-1 decodes every byte")  # pragma: no cover
+
+
+def subtitle_format(path: Path) -> SubtitleFormat:
+    """The format a subtitle file's extension names.
+
+    Raises:
+        SubtitleError: the extension is neither .vtt nor .srt.
+    """
+    suffix = Path(path).suffix.lower()
+    if suffix == ".vtt":
+        return "vtt"
+    if suffix == ".srt":
+        return "srt"
+    raise SubtitleError(path, f"unknown subtitle type {suffix or '(no extension)'}", "use a .vtt or .srt file")
+
+
+def read_track(path: Path) -> SubtitleTrack:
+    """Read a .vtt or .srt file; the file itself is only read, never changed.
+
+    Raises:
+        SubtitleError: missing or unreadable file, unknown extension, or malformed content
+            (the message names the line).
+    """
+    path = Path(path)
+    fmt = subtitle_format(path)
+    if not path.is_file():
+        raise SubtitleError(path, "subtitle file not found", "check the path")
+    try:
+        raw = path.read_bytes()
+    except OSError as exc:
+        raise SubtitleError(path, f"cannot read ({exc.strerror})", "check its permissions") from exc
+    return parse_subtitles(decode_text(path, raw), fmt, name=str(path))
 
 
 def read_subtitles(path: Path) -> tuple[SubtitleCue, ...]:
-    """All cues of a .vtt or .srt file, sorted by start time.
+    """All cues of a .vtt or .srt file, sorted by start time (see `read_track`)."""
+    return read_track(path).cues
+
+
+def parse_subtitles(text: str, fmt: SubtitleFormat, *, name: str = "subtitles") -> SubtitleTrack:
+    """Parse decoded subtitle text; `name` is used in error messages.
 
     Raises:
-        SubtitleError: missing file, unknown extension or malformed content.
+        SubtitleError: malformed content, naming `name` and the line.
     """
-    path = Path(path)
-    if not path.is_file():
-        raise SubtitleError(path, "subtitle file not found", "check the path")
-    text = decode_text(path, path.read_bytes())
-    suffix = path.suffix.lower()
-    if suffix == ".vtt":
-        cues = _read_vtt(path, text)
-    elif suffix == ".srt":
-        cues = _read_srt(path, text)
-    else:
-        raise SubtitleError(path, f"unknown subtitle type {suffix or '(none)'}", "use a .vtt or .srt file")
-    return tuple(sorted(cues, key=lambda c: (c.start_ms, c.end_ms)))
+    text = text.lstrip("\ufeff")
+    cues, header = (_parse_vtt(name, text) if fmt == "vtt" else (_parse_srt(name, text), ()))
+    arrows = _arrow_lines(text)
+    for number, cue in enumerate(cues):
+        if cue.end_ms <= cue.start_ms:
+            line = arrows[number] if number < len(arrows) else 0
+            raise SubtitleError(_where(name, line), "cue ends before or when it starts", _FIX)
+    ordered = sorted(cues, key=lambda c: (c.start_ms, c.end_ms))  # stable: equal times keep file order
+    return SubtitleTrack(name, fmt, tuple(ordered), header)
 
 
-def _ms(seconds: float) -> int:
-    return round(seconds * 1000)
+def dialogue_spans(cues: Sequence[SubtitleCue]) -> tuple[Span, ...]:
+    """The time covered by subtitle cues, overlapping or touching cues joined into one span.
+
+    >>> dialogue_spans([SubtitleCue(0, 1000, "a"), SubtitleCue(500, 2000, "b"), SubtitleCue(3000, 4000, "c")])
+    (Span(start_ms=0, end_ms=2000), Span(start_ms=3000, end_ms=4000))
+    """
+    spans: list[Span] = []
+    for cue in sorted(cues, key=lambda c: c.start_ms):
+        if spans and cue.start_ms <= spans[-1].end_ms:
+            spans[-1] = Span(spans[-1].start_ms, max(spans[-1].end_ms, cue.end_ms))
+        else:
+            spans.append(Span(cue.start_ms, cue.end_ms))
+    return tuple(spans)
+
+
+def plain_lines(text: str, fmt: SubtitleFormat) -> tuple[str, ...]:
+    """The lines a viewer reads: tags removed, WebVTT character references decoded.
+
+    >>> plain_lines("<v A><i>Tea</i> &amp; toast</v>\\nNow", "vtt")
+    ('Tea & toast', 'Now')
+    """
+    stripped = _TAG.sub("", text)
+    if fmt == "vtt":
+        stripped = html.unescape(stripped)
+    return tuple(stripped.split("\n"))
+
+
+def _where(name: str, line: int) -> str:
+    return f"{name}, line {line}" if line > 0 else name
+
+
+def _arrow_lines(text: str) -> list[int]:
+    # In a well-formed file every line holding "-->" is a cue timing line (WebVTT forbids
+    # the arrow in cue text and comments), so the n-th such line belongs to the n-th cue.
+    return [number for number, line in enumerate(text.splitlines(), start=1) if "-->" in line]
 
 
 def _stamp_ms(stamp: webvtt.models.Timestamp) -> int:
@@ -65,22 +174,76 @@ def _stamp_ms(stamp: webvtt.models.Timestamp) -> int:
     return ((stamp.hours * 60 + stamp.minutes) * 60 + stamp.seconds) * 1000 + stamp.milliseconds
 
 
-def _read_vtt(path: Path, text: str) -> list[SubtitleCue]:
+def _vtt_document(text: str) -> webvtt.WebVTT:
+    # strict: a malformed cue raises instead of vanishing, so no dialogue is ever lost
+    return webvtt.from_buffer(io.StringIO(text), strict=True)
+
+
+def _parse_vtt(name: str, text: str) -> tuple[list[SubtitleCue], tuple[str, ...]]:
     try:
-        parsed = webvtt.from_buffer(io.StringIO(text))
+        document = _vtt_document(text)
     except Exception as exc:  # webvtt-py raises several error types for bad input
-        raise SubtitleError(path, f"not valid WebVTT ({str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__})", "fix the file or export it again") from exc
-    return [
-        SubtitleCue(_stamp_ms(c.start_time), _stamp_ms(c.end_time), c.raw_text, c.identifier or "", c.settings or "")
-        for c in parsed
+        line, problem = _locate_vtt_error(text)
+        raise SubtitleError(_where(name, line), problem, _FIX) from exc
+    cues = [
+        SubtitleCue(_stamp_ms(c.start_time), _stamp_ms(c.end_time), c.raw_text, c.identifier or "", str(c.settings))
+        for c in document.captions
     ]
+    header = tuple("STYLE\n" + s.text for s in document.styles) + tuple("REGION\n" + "\n".join(r) for r in document.regions)
+    return cues, header
 
 
-def _read_srt(path: Path, text: str) -> list[SubtitleCue]:
+def _locate_vtt_error(text: str) -> tuple[int, str]:
+    """The line of the first block webvtt-py rejects, found by parsing ever longer prefixes.
+
+    webvtt-py names the bad block but not its line, so bisect over block boundaries: a
+    prefix of whole blocks fails exactly when it holds the first bad block.
+    """
+    lines = text.splitlines()
+    if not lines or not lines[0].startswith("WEBVTT"):
+        return 1, "not a WebVTT file (the first line must start with WEBVTT)"
+    starts = [i for i, line in enumerate(lines) if line and (i == 0 or not lines[i - 1])]
+    ends = starts[1:] + [len(lines)]
+
+    def fails(blocks: int) -> bool:
+        try:
+            _vtt_document("\n".join(lines[: ends[blocks - 1]]) + "\n")
+        except Exception:
+            return True
+        return False
+
+    low, high = 1, len(starts)
+    if not fails(high):
+        return 0, "not valid WebVTT"
+    while low < high:
+        middle = (low + high) // 2
+        if fails(middle):
+            high = middle
+        else:
+            low = middle + 1
+    first = starts[low - 1]
+    block = lines[first : ends[low - 1]]
+    arrows = [i for i, line in enumerate(block) if "-->" in line] or [0]
+    if len(arrows) > 1:
+        return first + arrows[1] + 1, "cue timing line without a blank line before it"
+    arrow = arrows[0]
+    return first + arrow + 1, f"not a valid WebVTT cue ({block[arrow].strip()[:60]!r}: check timestamps hh:mm:ss.ttt and cue settings)"
+
+
+def _parse_srt(name: str, text: str) -> list[SubtitleCue]:
     try:
         parsed = list(srt_library.parse(text))
     except srt_library.SRTParseError as exc:
-        line = text[: exc.actual_start].count("\n") + 1 if hasattr(exc, "actual_start") else None
-        where = f" near line {line}" if line else ""
-        raise SubtitleError(path, f"not valid SRT{where}", "fix the file or export it again") from exc
-    return [SubtitleCue(_ms(s.start.total_seconds()), _ms(s.end.total_seconds()), s.content, str(s.index)) for s in parsed]
+        skipped = len(exc.unmatched_content) - len(exc.unmatched_content.lstrip())
+        line = text[: exc.expected_start + skipped].count("\n") + 1
+        snippet = exc.unmatched_content.strip().splitlines()[0][:60] if exc.unmatched_content.strip() else ""
+        raise SubtitleError(_where(name, line), f"not valid SRT ({snippet!r} is not a subtitle block)", _FIX) from exc
+    except ValueError as exc:  # srt.TimestampParseError: a timestamp with impossible fields
+        stamp = str(exc).rpartition(": ")[2]
+        line = next((n for n, row in enumerate(text.splitlines(), start=1) if stamp and stamp in row), 0)
+        raise SubtitleError(_where(name, line), f"not valid SRT ({exc})", _FIX) from exc
+    return [SubtitleCue(_ms(s.start), _ms(s.end), s.content, str(s.index)) for s in parsed]
+
+
+def _ms(delta: timedelta) -> int:
+    return delta // timedelta(milliseconds=1)

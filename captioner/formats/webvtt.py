@@ -37,14 +37,27 @@ def _note(text: str) -> str:
     return "NOTE\n" + "\n".join(lines)
 
 
+def cue_block(start_ms: int, end_ms: int, payload: str, *, identifier: str = "", settings: str = "") -> str:
+    """One cue block; `payload` is WebVTT cue text already (escaped, tags as wanted).
+
+    >>> cue_block(1000, 2500, "[door slams]", identifier="s1", settings="line:0")
+    's1\\n00:00:01.000 --> 00:00:02.500 line:0\\n[door slams]'
+    """
+    timing = f"{timestamp(start_ms)} --> {timestamp(end_ms)}" + (f" {settings}" if settings else "")
+    return "\n".join(part for part in (identifier, timing, payload) if part)
+
+
+def document(blocks: Sequence[str], *, note: str = "", header_blocks: Sequence[str] = ()) -> str:
+    """A whole WebVTT file from cue blocks; STYLE/REGION `header_blocks` go before the first cue."""
+    parts = ["WEBVTT", *([_note(note)] if note else []), *header_blocks, *blocks]
+    return "\n\n".join(parts) + "\n"
+
+
 def dumps(cues: Sequence[Cue], note: str = "") -> str:
     """The whole WebVTT file as text; `note` becomes a NOTE block after the header."""
-    blocks = ["WEBVTT"]
-    if note:
-        blocks.append(_note(note))
+    blocks = []
     for cue in cues:
         identifier = cue.event_ids[0] if cue.event_ids else ""
         body = "\n".join(escape(line) for line in cue.lines if line.strip()) or "&nbsp;"
-        timing = f"{timestamp(cue.start_ms)} --> {timestamp(cue.end_ms)}"
-        blocks.append("\n".join(part for part in (identifier, timing, body) if part))
-    return "\n\n".join(blocks) + "\n"
+        blocks.append(cue_block(cue.start_ms, cue.end_ms, body, identifier=identifier))
+    return document(blocks, note=note)

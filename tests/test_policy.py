@@ -1,0 +1,155 @@
+"""Selection policy with hand-made events: each rule alone, and the setting that switches it off."""
+
+from __future__ import annotations
+
+from dataclasses import replace
+
+from captioner.events import SoundEvent, Span
+from captioner.policy import salience, select_events
+from captioner.style import Selection
+from captioner.vocabulary import Kind
+
+# A permissive base so that each test exercises one rule only.
+OPEN = Selection(min_confidence=0.0, min_salience=0.0, evidence_gate=False, parent_redundancy=False, sibling_redundancy=False,
+                 dialogue_gate=False, gap_shift_ms=0, cooldown_ms=0, max_cues_per_minute=0)
+
+
+def event(event_id: str, concept: str, start_ms: int, end_ms: int, peak: float = 0.8, *, kind: Kind = Kind.TRANSIENT, priority: int = 3,
+          parent: str | None = None, ancestors: tuple[str, ...] = (), level_db: float = -20.0, background_db: float = -40.0,
+          phrase: str | None = None, label: str | None = None) -> SoundEvent:
+    words = phrase or concept.replace("_", " ")
+    return SoundEvent(event_id, concept, label or concept, words, words, kind, priority, parent, start_ms, end_ms, peak, peak * 0.8,
+                      level_db, background_db, ancestors or ((parent,) if parent else ()))
+
+
+def run(events: list[SoundEvent], settings: Selection, dialogue: tuple[Span, ...] = ()) -> tuple[set[str], dict[str, str]]:
+    selected = select_events(events, dialogue, settings)
+    assert [d.event_id for d in selected.decisions] == [e.event_id for e in events]  # a decision for every event, in order
+    return {e.event_id for e in selected.kept}, {d.event_id: d.rule for d in selected.decisions}
+
+
+def test_confidence() -> None:
+    events = [event("a", "dog", 0, 1000, 0.2), event("b", "cat", 5000, 6000, 0.6)]
+    assert run(events, replace(OPEN, min_confidence=0.3)) == ({"b"}, {"a": "confidence", "b": "kept"})
+    assert run(events, OPEN)[0] == {"a", "b"}
+
+
+def test_salience_ranks_alarms_above_faint_ambience() -> None:
+    alarm = event("a", "smoke_alarm", 0, 1000, 0.45, priority=5)
+    tone = event("b", "room_tone", 5000, 6000, 0.45, priority=1, kind=Kind.AMBIENCE)
+    assert salience(alarm) > salience(tone)
+    loud = event("c", "dog", 0, 1000, 0.5, level_db=-10.0, background_db=-40.0)
+    quiet = event("d", "dog", 0, 1000, 0.5, level_db=-36.0, background_db=-40.0)
+    assert salience(loud) > salience(quiet)
+    assert salience(replace(loud, end_ms=3000)) > salience(loud)  # longer sounds count more
+    kept, rules = run([alarm, tone], replace(OPEN, min_salience=0.55))
+    assert kept == {"a"} and rules["b"] == "salience"
+    assert run([alarm, tone], OPEN)[0] == {"a", "b"}
+
+
+def test_evidence_gate_drops_claims_over_silence_and_over_no_contrast() -> None:
+    silent = event("a", "dog", 0, 1000, level_db=-70.0, background_db=-90.0)
+    flat = event("b", "cat", 5000, 6000, level_db=-30.0, background_db=-30.5)
+    real = event("c", "bird", 9000, 10000, level_db=-25.0, background_db=-40.0)
+    kept, rules = run([silent, flat, real], replace(OPEN, evidence_gate=True))
+    assert kept == {"c"}
+    assert rules["a"] == rules["b"] == "evidence"
+    assert run([silent, flat, real], OPEN)[0] == {"a", "b", "c"}
+
+
+def test_a_confident_child_replaces_the_parent_it_covers() -> None:
+    vehicle = event("v", "vehicle", 0, 2000, 0.6, kind=Kind.CONTINUOUS)
+    horn = event("h", "car_horn", 200, 1800, 0.9, priority=4, parent="vehicle")
+    kept, rules = run([vehicle, horn], replace(OPEN, parent_redundancy=True))
+    assert kept == {"h"} and rules["v"] == "parent"
+    assert run([vehicle, horn], OPEN)[0] == {"v", "h"}
+
+
+def test_a_grandchild_also_covers_its_grandparent() -> None:
+    alarm = event("a", "alarm", 0, 5000, 0.5, kind=Kind.CONTINUOUS, priority=5)
+    police = event("p", "police_siren", 0, 5000, 0.9, kind=Kind.CONTINUOUS, priority=5, parent="siren", ancestors=("siren", "alarm"))
+    assert run([alarm, police], replace(OPEN, parent_redundancy=True))[0] == {"p"}
+
+
+def test_a_brief_child_does_not_erase_a_long_parent() -> None:
+    vehicle = event("v", "vehicle", 0, 20000, 0.8, kind=Kind.CONTINUOUS)
+    horn = event("h", "car_horn", 5000, 5500, 0.9, priority=4, parent="vehicle")
+    assert run([vehicle, horn], replace(OPEN, parent_redundancy=True))[0] == {"v", "h"}
+
+
+def test_an_unsure_child_yields_to_an_equally_sure_parent() -> None:
+    vehicle = event("v", "vehicle", 0, 2000, 0.5, kind=Kind.CONTINUOUS)
+    boat = event("b", "boat", 0, 2000, 0.5, kind=Kind.CONTINUOUS, parent="vehicle")
+    kept, rules = run([vehicle, boat], replace(OPEN, parent_redundancy=True, child_confidence=0.6))
+    assert kept == {"v"} and rules["b"] == "parent"
+
+
+def test_music_takes_mood_wording_only_when_the_mood_is_confident() -> None:
+    music = event("m", "music", 0, 30000, 0.9, kind=Kind.MUSIC, phrase="music")
+    happy = event("h", "music_mood", 2000, 8000, 0.8, kind=Kind.MUSIC, parent="music", phrase="upbeat music", label="Happy music")
+    settings = replace(OPEN, parent_redundancy=True, music_detail_confidence=0.6)
+    selected = select_events([music, happy], (), settings)
+    assert [(e.event_id, e.phrase, e.start_ms) for e in selected.kept] == [("m", "upbeat music", 0)]
+    unsure = select_events([music, replace(happy, peak_score=0.5)], (), settings)
+    assert [(e.event_id, e.phrase) for e in unsure.kept] == [("m", "music")]
+    assert {d.rule for d in unsure.decisions if not d.kept} == {"music"}
+
+
+def test_overlapping_siblings_are_one_sound() -> None:
+    smoke = event("s", "smoke_alarm", 1000, 6000, 0.9, priority=5, parent="alarm")
+    buzzer = event("b", "buzzer", 1200, 5800, 0.5, priority=4, parent="alarm")
+    later = event("c", "buzzer", 20000, 21000, 0.5, priority=4, parent="alarm")
+    kept, rules = run([smoke, buzzer, later], replace(OPEN, sibling_redundancy=True))
+    assert kept == {"s", "c"} and rules["b"] == "sibling"
+    assert run([smoke, buzzer, later], OPEN)[0] == {"s", "b", "c"}
+
+
+def test_dialogue_drops_low_priority_and_asks_more_confidence_of_the_rest() -> None:
+    talk = (Span(0, 10000),)
+    rustle = event("r", "rustling", 1000, 2000, 0.9, priority=1)
+    unsure_knock = event("k", "knock", 3000, 3500, 0.6, priority=4)
+    sure_knock = event("s", "knock", 6000, 6500, 0.9, priority=4)
+    music = event("m", "music", 4000, 9000, 0.75, kind=Kind.MUSIC, priority=3)
+    clear = event("c", "dog", 12000, 13000, 0.4, priority=3)
+    settings = replace(OPEN, dialogue_gate=True, dialogue_min_priority=3, dialogue_confidence=0.7)
+    kept, rules = run([rustle, unsure_knock, sure_knock, music, clear], settings, talk)
+    assert kept == {"s", "m", "c"}
+    assert rules["r"] == rules["k"] == "dialogue"
+    assert run([rustle, unsure_knock, sure_knock, music, clear], OPEN, talk)[0] == {"r", "k", "s", "m", "c"}
+
+
+def test_a_short_event_moves_into_a_near_dialogue_gap_within_tolerance() -> None:
+    talk = (Span(0, 5600), Span(9000, 12000))
+    knock = event("k", "knock", 5000, 5400, 0.9, priority=4)
+    far = event("f", "knock", 9200, 9600, 0.9, priority=4)  # the gap is 2.8 s away: stays
+    settings = replace(OPEN, dialogue_gate=True, dialogue_confidence=0.7, gap_shift_ms=1000)
+    starts = {e.event_id: e.start_ms for e in select_events([knock, far], talk, settings).kept}
+    assert starts == {"k": 5600, "f": 9200}
+    unmoved = {e.event_id: e.start_ms for e in select_events([knock, far], talk, replace(settings, gap_shift_ms=0)).kept}
+    assert unmoved == {"k": 5000, "f": 9200}
+
+
+def test_the_same_sound_within_the_cooldown_joins_the_earlier_event() -> None:
+    first = event("a", "dog", 0, 1000, 0.7)
+    again = event("b", "dog", 6000, 7000, 0.9)
+    other = event("c", "cat", 3000, 4000)
+    selected = select_events([first, other, again], (), replace(OPEN, cooldown_ms=10000))
+    assert [(e.event_id, e.start_ms, e.end_ms, e.peak_score) for e in selected.kept] == [("a", 0, 7000, 0.9), ("c", 3000, 4000, 0.8)]
+    assert {d.event_id: d.rule for d in selected.decisions}["b"] == "repeat"
+    assert len(select_events([first, other, again], (), OPEN).kept) == 3
+
+
+def test_a_continuous_sound_is_not_recaptioned_every_few_seconds() -> None:
+    rain = [event(f"r{i}", "rain", i * 4000, i * 4000 + 3000, 0.7, kind=Kind.AMBIENCE) for i in range(10)]
+    kept = select_events(rain, (), replace(OPEN, cooldown_ms=10000)).kept
+    assert [(e.start_ms, e.end_ms) for e in kept] == [(0, 39000)]
+
+
+def test_density_cap_keeps_the_most_salient() -> None:
+    events = [event(f"e{i:02d}", f"sound{i}", i * 2000, i * 2000 + 1000, 0.3 + i * 0.02) for i in range(15)]
+    events[0] = replace(events[0], peak_score=0.99, priority=5)
+    kept, rules = run(events, replace(OPEN, max_cues_per_minute=12))
+    assert len(kept) == 12
+    assert "e00" in kept  # the loud, high-priority one survives although it comes first
+    assert {rules[e] for e in {"e01", "e02", "e03"}} == {"density"}
+    assert len(run(events, OPEN)[0]) == 15
