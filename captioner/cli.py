@@ -250,7 +250,8 @@ def _caption(args: argparse.Namespace) -> int:
         if merged is not None:
             print(merge_table(merged), file=sys.stderr)
     if output is not None and not updating:
-        say(f"{len(result.cues)} cue(s) written to {output}")
+        counted = f"{len(result.cues)} cue(s)" if merged is None else f"{len(merged.cues)} cue(s), {sum(c.dialogue is not None for c in merged.cues)} of them dialogue,"
+        say(f"{counted} written to {output}")
     return EXIT_OK
 
 

@@ -12,6 +12,9 @@ from .style import Detection
 from .vocabulary import ClassEntry, Kind, Vocabulary
 
 _NEVER_CAPTIONED = (Kind.SPEECH, Kind.IGNORE)
+# The noise floor is a low percentile of the surrounding frame levels: the pauses between
+# words and sounds. The median would be the dialogue itself wherever people talk.
+FLOOR_PERCENTILE = 15
 LASTING = (Kind.CONTINUOUS, Kind.MUSIC, Kind.AMBIENCE)
 
 
@@ -35,6 +38,8 @@ class SoundEvent:
     background_db: float  # loudness around it (dBFS, median of frames in a +-5 s window)
     ancestors: tuple[str, ...] = ()  # parent, grandparent, ... (for redundancy between levels)
     joined: int = 0  # later occurrences folded into this one by the selection policy
+    generic: bool = False  # the concept's wording names no source (see the vocabulary)
+    floor_db: float | None = None  # noise floor around it (dBFS, FLOOR_PERCENTILE of the same window); None = unknown
 
     @property
     def duration_ms(self) -> int:
@@ -43,6 +48,11 @@ class SoundEvent:
     @property
     def contrast_db(self) -> float:
         return self.level_db - self.background_db
+
+    @property
+    def above_floor_db(self) -> float:
+        """Event level above the noise floor (above the background when the floor is unknown)."""
+        return self.level_db - (self.background_db if self.floor_db is None else self.floor_db)
 
 
 @dataclass(frozen=True, slots=True)
@@ -143,7 +153,7 @@ def detect_events(track: ScoreTrack, vocabulary: Vocabulary, settings: Detection
                 start_ms = refine_onset(track, start_ms, first, end_ms)
             window = track.scores[first:last, columns]
             best = entries[int(np.argmax(window.sum(axis=0)))]
-            level, background = _levels(track, int(track.patch_start_ms(first)), end_ms)
+            level, background, floor = _levels(track, int(track.patch_start_ms(first)), end_ms)
             found.append(
                 SoundEvent(
                     event_id="",
@@ -161,6 +171,8 @@ def detect_events(track: ScoreTrack, vocabulary: Vocabulary, settings: Detection
                     level_db=level,
                     background_db=background,
                     ancestors=lineage.get(concept, ()),
+                    generic=best.generic,
+                    floor_db=floor,
                 )
             )
     found.sort(key=lambda e: (e.start_ms, -e.priority, e.concept))
@@ -200,12 +212,14 @@ def _frames(track: ScoreTrack, start_ms: float, end_ms: float) -> np.ndarray:
     return track.energy_db[first:last] if last > first else np.zeros(0, np.float32)
 
 
-def _levels(track: ScoreTrack, start_ms: int, end_ms: int) -> tuple[float, float]:
+def _levels(track: ScoreTrack, start_ms: int, end_ms: int) -> tuple[float, float, float]:
+    """(level, background, floor) in dBFS: 90th percentile inside, median and FLOOR_PERCENTILE within 5 s around."""
     inside = _frames(track, start_ms, end_ms)
     around = np.concatenate([_frames(track, start_ms - 5000, start_ms), _frames(track, end_ms, end_ms + 5000)])
     level = float(np.percentile(inside, 90)) if inside.size else -100.0
     background = float(np.median(around)) if around.size else -100.0
-    return level, background
+    floor = float(np.percentile(around, FLOOR_PERCENTILE)) if around.size else -100.0
+    return level, background, floor
 
 
 def refine_onset(track: ScoreTrack, start_ms: int, first_patch: int, end_ms: int) -> int:

@@ -336,7 +336,7 @@ class _Bar:
             from tqdm import tqdm
 
             total = sum(t.fingerprint.size for t in tasks)
-            self.bar = tqdm(total=total, file=sys.stderr, leave=False, bar_format="{l_bar}{bar}| {postfix} [{elapsed}<{remaining}]")
+            self.bar = tqdm(total=total, file=sys.stderr, leave=False, bar_format="{desc} {percentage:3.0f}%|{bar}| {elapsed}<{remaining}")
             self._show()
 
     def __enter__(self) -> _Bar:
@@ -347,7 +347,7 @@ class _Bar:
             self.bar.close()
 
     def _show(self) -> None:
-        self.bar.set_postfix_str(f"{self.count}/{self.files} files, {self.media_ms / 3_600_000:.2f} h of media", refresh=True)
+        self.bar.set_description_str(f"{self.count}/{self.files} files, {self.media_ms / 3_600_000:.2f} h of media", refresh=True)
 
     def advance(self, size: int, media_ms: int) -> None:
         self.count += 1

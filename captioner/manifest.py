@@ -234,7 +234,7 @@ class Summary:
     media_ms: int  # duration of the files captioned in this run
     cues: int
     wall_s: float
-    workers: int
+    workers: int  # local worker processes; 0 = a Dask cluster
     edited: tuple[str, ...]  # outputs a person changed; the new draft went beside each as .new
     failures: tuple[tuple[str, str], ...]  # (file, error), this run's and earlier ones
     merged: int  # files that also got a merged dialogue + sound track

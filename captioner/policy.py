@@ -3,11 +3,12 @@
 Rules run in a fixed order; the first rule that drops an event names the decision:
 
     confidence, duration, salience  -- the event alone is too weak to caption
-    evidence   -- no signal energy backs the claim (near-silence, or not above the background)
+    evidence   -- no signal energy backs the claim (near-silence, or not above the noise floor)
     parent     -- a confident, more specific concept covers it (vehicle under car horn),
                   or it is an unsure child that its surer parent already names
     music      -- a mood/genre/singing detail that is not confident enough to word the music
     sibling    -- another refinement of the same parent scored higher on the same sound
+    generic    -- a sourceless description ("beeping") beside a specific sound of that moment
     dialogue   -- it sits under dialogue and is too unimportant or too unsure for that
     repeat     -- the same concept again within the cooldown: joined to the earlier event
     density    -- more cues per minute than the style allows; the least salient go
@@ -27,7 +28,7 @@ from .style import Selection
 from .vocabulary import Kind
 
 Rule = Literal[
-    "kept", "confidence", "duration", "salience", "evidence", "parent", "music", "sibling", "dialogue", "repeat", "density", "layout"
+    "kept", "confidence", "duration", "salience", "evidence", "parent", "music", "sibling", "generic", "dialogue", "repeat", "density", "layout"
 ]
 _Drop = Callable[[SoundEvent, Rule, str], None]
 
@@ -85,6 +86,8 @@ def select_events(events: list[SoundEvent], dialogue: tuple[Span, ...], settings
         alive = _parents(alive, settings, drop, notes)
     if settings.sibling_redundancy:
         alive = _siblings(alive, drop)
+    if settings.generic_redundancy:
+        alive = _generics(alive, drop)
     if settings.cooldown_ms > 0:  # before the dialogue rule: a sound judged as a whole
         alive = _repeats(alive, settings.cooldown_ms, drop)
     if settings.dialogue_gate:
@@ -108,11 +111,17 @@ def _weak(events: list[SoundEvent], settings: Selection, drop: _Drop) -> list[So
             drop(event, "salience", f"salience {salience(event, settings):.2f} < {settings.min_salience}")
         elif settings.evidence_gate and event.level_db < settings.min_level_db:
             drop(event, "evidence", f"signal level {event.level_db:.0f} dBFS is near silence")
-        elif settings.evidence_gate and event.contrast_db < settings.min_contrast_db:
-            drop(event, "evidence", f"only {event.contrast_db:+.1f} dB against the background")
+        elif settings.evidence_gate and event.above_floor_db < settings.min_contrast_db and not _safety_exempt(event, settings):
+            drop(event, "evidence", f"only {event.above_floor_db:+.1f} dB above the noise floor")
         else:
             alive.append(event)
     return alive
+
+
+def _safety_exempt(event: SoundEvent, settings: Selection) -> bool:
+    """A confident safety sound (priority 5) is captioned however loud its surroundings are:
+    a missed siren costs a viewer far more than a false one."""
+    return event.priority >= 5 and settings.safety_confidence < 1.0 and event.peak_score >= settings.safety_confidence
 
 
 def _shared_ms(a: SoundEvent, b: SoundEvent) -> int:
@@ -175,6 +184,26 @@ def _siblings(alive: list[SoundEvent], drop: _Drop) -> list[SoundEvent]:
             if _shared_ms(event, other) * 2 >= min(event.duration_ms, other.duration_ms) and other.peak_score <= event.peak_score:
                 gone.add(other.event_id)
                 drop(other, "sibling", f"same sound as {event.concept} ({event.event_id}), which scored higher")
+    return [e for e in alive if e.event_id not in gone]
+
+
+def _generics(alive: list[SoundEvent], drop: _Drop) -> list[SoundEvent]:
+    """A generic concept ("[beeping]", "[alarm blaring]") says nothing that a specific sound
+    covering most of its time does not: "[smoke alarm beeping]" already is the beeping.
+
+    The specific sound must rank at least as high, or be at least as sure and at most one
+    priority step lower (a confidently heard phone names the "alarm" it set off; a dog
+    never hides an alarm).
+    """
+    gone: set[str] = set()
+    for generic in (e for e in alive if e.generic):
+        for other in alive:
+            if other.generic or other.event_id in gone or _shared_ms(generic, other) * 2 < generic.duration_ms:
+                continue
+            if other.priority >= generic.priority or (other.priority == generic.priority - 1 and other.peak_score >= generic.peak_score):
+                gone.add(generic.event_id)
+                drop(generic, "generic", f"the specific {other.concept} ({other.event_id}) names this sound")
+                break
     return [e for e in alive if e.event_id not in gone]
 
 

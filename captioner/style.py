@@ -73,10 +73,12 @@ class Selection:
     length_weight: float = 0.1  # salience for lasting 3 s or more
     evidence_gate: bool = True  # a sound claim needs signal energy at that time
     min_level_db: float = -55.0  # quieter than this is near-silence
-    min_contrast_db: float = 3.0  # event level above its local background
+    min_contrast_db: float = 3.0  # event level above the local noise floor
+    safety_confidence: float = 0.5  # a priority-5 sound this sure needs no contrast, only signal (1 = no exemption)
     parent_redundancy: bool = True  # a confident child replaces its parent (car horn > vehicle)
     child_confidence: float = 0.6  # below this a child yields to an equally sure parent
     sibling_redundancy: bool = True  # overlapping siblings are one sound: keep the surest
+    generic_redundancy: bool = True  # "[beeping]" is left out beside a specific sound of the same moment
     music_detail_confidence: float = 0.6  # mood/genre/singing wording only above this
     dialogue_gate: bool = True
     dialogue_min_priority: int = 3  # under dialogue, lower priorities are dropped ...
@@ -151,6 +153,7 @@ _RANGES: dict[str, tuple[float, float]] = {
     "min_event_ms": (0, 10000),
     "min_level_db": (-120.0, 0.0),
     "min_contrast_db": (-60.0, 60.0),
+    "safety_confidence": (0.0, 1.0),
 }
 
 

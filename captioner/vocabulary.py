@@ -39,6 +39,7 @@ class ClassEntry:
     kind: Kind
     priority: int  # 1 (trivial) .. 5 (safety alert)
     parent: str | None
+    generic: bool = False  # the wording names no source ("beeping"); a specific sound of the moment says more
 
 
 @dataclass(frozen=True, slots=True)
@@ -98,5 +99,8 @@ def load_vocabulary(path: Path, labels: tuple[str, ...]) -> Vocabulary:
         parent = spec.get("parent")
         if parent is not None and parent not in data:
             raise PackError(path, f"concept {concept!r} names unknown parent {parent!r}", "add that concept or drop the parent")
-        entries.append(ClassEntry(index, label, concept, wording[0], wording[1], kind, priority, parent))
+        generic = spec.get("generic", False)
+        if not isinstance(generic, bool):
+            raise PackError(path, f"concept {concept!r} has generic={generic!r}", "use true or false")
+        entries.append(ClassEntry(index, label, concept, wording[0], wording[1], kind, priority, parent, generic))
     return Vocabulary(tuple(entries))

@@ -24,6 +24,7 @@ import webvtt
 
 from captioner import library, manifest
 from captioner.cli import main
+from captioner.formats import write_atomic
 from captioner.style import load_style
 from conftest import RATE, run_ffmpeg, tone, write_wav
 
@@ -135,9 +136,9 @@ def test_batch_captions_a_library_and_isolates_bad_files(tmp_path: Path, capsys:
     assert summary["cues"] == sum(r["cues"] for r in table.values() if r["status"] == "done")
     # The dialogue subtitles beside the demo: used, and merged with every dialogue cue intact.
     assert table["demo.mp4"]["dialogue"] == "demo.vtt"
-    dialogue = [(c.start, c.end, c.text) for c in webvtt.read(str(lib / "demo.vtt"))]
+    dialogue = [(c.start, c.end, c.text) for c in webvtt.read(str(lib / "demo.vtt")).captions]
     merged = webvtt.read(str(lib / "demo.merged.vtt"))
-    assert all(any(m.start == s and m.end == e and m.text.startswith(t) for m in merged) for s, e, t in dialogue)
+    assert all(any(m.start == s and m.end == e and m.text.startswith(t) for m in merged.captions) for s, e, t in dialogue)
     assert len(merged.captions) > len(dialogue)
     assert summary["merged"] == 1
     assert not list(lib.rglob(".*.tmp"))
@@ -197,13 +198,16 @@ def test_outdir_mirrors_the_library(tmp_path: Path, capsys: pytest.CaptureFixtur
     assert sorted(p.name for p in lib.rglob("*") if p.is_file()) == ["clip.wav"]  # library untouched
 
 
-def interrupted_then_resumed(lib: Path, monkeypatch: pytest.MonkeyPatch, patch: Any) -> None:
-    """Run with `patch` applied until it raises KeyboardInterrupt, then run again cleanly."""
+def interrupted_then_resumed(lib: Path, monkeypatch: pytest.MonkeyPatch, patch: Any, check: Any = None) -> None:
+    """Run with `patch` applied until it raises KeyboardInterrupt, `check` the state left
+    behind, then run again cleanly."""
     options = library.BatchOptions(folder=lib, style=load_style("brackets"), workers=1)
     with monkeypatch.context() as m:
         patch(m)
         with pytest.raises(KeyboardInterrupt):
             library.run_batch(options)
+    if check:
+        check()
     summary = library.run_batch(options)
     assert summary.ok and summary.done + summary.skipped == 3 and not summary.edited
 
@@ -237,13 +241,43 @@ def test_kill_between_output_write_and_manifest_update(three_files: tuple[Path, 
             raise KeyboardInterrupt  # outputs of b are in place, its row still says "writing"
         real_save(self, record)
 
-    interrupted_then_resumed(lib, monkeypatch, lambda m: m.setattr(manifest.RunManifest, "save", save))
+    def killed_state() -> None:
+        assert rows(lib)["b.wav"]["status"] == "writing" and (lib / "b.sounds.vtt").is_file()
+
+    interrupted_then_resumed(lib, monkeypatch, lambda m: m.setattr(manifest.RunManifest, "save", save), killed_state)
     assert_complete(lib, reference)
+
+
+def test_output_left_by_a_killed_run_is_ours_even_when_the_media_then_changes(
+    three_files: tuple[Path, dict[str, tuple[int, bytes]]], monkeypatch: pytest.MonkeyPatch
+) -> None:
+    lib, _ = three_files
+    real_save = manifest.RunManifest.save
+
+    def save(self: manifest.RunManifest, record: manifest.FileRecord) -> None:
+        if record.status == "done" and record.path == "b.wav":
+            raise KeyboardInterrupt
+        real_save(self, record)
+
+    def change_b() -> None:
+        time.sleep(0.01)
+        beeps(lib / "b.wav", 400.0)  # the next draft of b differs from the one left on disk
+
+    left: dict[str, tuple[int, bytes]] = {}
+
+    def remember_then_change() -> None:
+        left.update(snapshot(lib))
+        change_b()
+
+    interrupted_then_resumed(lib, monkeypatch, lambda m: m.setattr(manifest.RunManifest, "save", save), remember_then_change)
+    assert not list(lib.glob("*.new"))  # recognised as our own draft by its recorded pending hash
+    assert (lib / "b.sounds.json").read_bytes() != left["b.sounds.json"][1]
+    assert json.loads((lib / "b.sounds.json").read_text())["events"][0]["start_ms"] < 4000
 
 
 def test_kill_in_the_middle_of_writing_an_output(three_files: tuple[Path, dict[str, tuple[int, bytes]]], monkeypatch: pytest.MonkeyPatch) -> None:
     lib, reference = three_files
-    real_write = library.write_atomic
+    real_write = write_atomic
 
     def half_write(path: Path, text: str, *, force: bool = False) -> None:
         if path.name == "b.sounds.json":
@@ -251,7 +285,10 @@ def test_kill_in_the_middle_of_writing_an_output(three_files: tuple[Path, dict[s
             raise KeyboardInterrupt
         real_write(path, text, force=force)
 
-    interrupted_then_resumed(lib, monkeypatch, lambda m: m.setattr(library, "write_atomic", half_write))
+    def killed_state() -> None:
+        assert not (lib / "b.sounds.json").exists() and list(lib.glob(".b.sounds.json.*.tmp"))  # never a half output
+
+    interrupted_then_resumed(lib, monkeypatch, lambda m: m.setattr(library, "write_atomic", half_write), killed_state)
     assert_complete(lib, reference)
     assert not list(lib.glob(".*.tmp"))
 
@@ -268,6 +305,7 @@ def test_sigkill_at_any_moment_then_resume(three_files: tuple[Path, dict[str, tu
     if process.poll() is None:
         os.killpg(process.pid, signal.SIGKILL)
     process.wait()
+    print("killed" if process.returncode == -signal.SIGKILL else "finished", "with", sum(r["status"] == "done" for r in _rows_or_empty(lib)), "file(s) done")
     summary = library.run_batch(library.BatchOptions(folder=lib, style=load_style("brackets"), workers=1))
     assert summary.ok and summary.done + summary.skipped == 3 and not summary.edited
     assert_complete(lib, reference)
@@ -281,7 +319,7 @@ def _rows_or_empty(lib: Path) -> list[dict[str, Any]]:
 
 
 def test_worker_processes_and_a_dask_cluster_write_what_one_process_writes(three_files: tuple[Path, dict[str, tuple[int, bytes]]]) -> None:
-    distributed = pytest.importorskip("distributed")
+    import distributed  # in the test extra: a missing Dask must fail here, not skip
     lib, reference = three_files
     style = load_style("brackets")
     summary = library.run_batch(library.BatchOptions(folder=lib, style=style, workers=2))

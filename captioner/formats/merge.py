@@ -335,7 +335,7 @@ class _Board:
             lines = plain_lines(d.text, self.track.format) + tuple(x for lines, _ in self.added[i] for x in lines) + piece.lines
             longest = max(len(line) for line in lines)
             read = max(self.layout.min_duration_ms, reading_ms(lines, self.layout))
-            if len(lines) > 9:
+            if len(lines) > self.layout.max_lines:
                 why = f"with the dialogue it would make {len(lines)} lines (limit {self.layout.max_lines})"
             elif longest > self.layout.max_chars_per_line:
                 why = f"with the dialogue it would have a {longest}-character line (limit {self.layout.max_chars_per_line})"

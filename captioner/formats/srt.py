@@ -21,7 +21,7 @@ def dumps(cues: Sequence[Cue], note: str = "") -> str:
         )
         for number, cue in enumerate(cues, start=1)
     ]
-    return srt_library.compose(subtitles, reindex=False)
+    return str(srt_library.compose(subtitles, reindex=False))
 
 
 def dumps_text(cues: Sequence[tuple[int, int, str]]) -> str:
@@ -34,4 +34,4 @@ def dumps_text(cues: Sequence[tuple[int, int, str]]) -> str:
         srt_library.Subtitle(index=number, start=timedelta(milliseconds=start), end=timedelta(milliseconds=end), content=text)
         for number, (start, end, text) in enumerate(cues, start=1)
     ]
-    return srt_library.compose(subtitles, reindex=False)
+    return str(srt_library.compose(subtitles, reindex=False))

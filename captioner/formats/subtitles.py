@@ -20,12 +20,14 @@ from typing import Literal
 
 import srt as srt_library
 import webvtt
+from webvtt.errors import MalformedCaptionError, MalformedFileError
 
 from ..errors import SubtitleError
 from ..events import Span
 
 SubtitleFormat = Literal["vtt", "srt"]
 _FIX = "fix that line or export the file again"
+_VTT_ERRORS = (MalformedFileError, MalformedCaptionError, ValueError)  # what webvtt-py raises for bad input
 _TAG = re.compile(r"<[^>]*>|\{\\[^}]*\}")  # WebVTT/SRT inline tags and SRT {\an8}-style codes
 
 
@@ -59,7 +61,7 @@ def decode_text(path: Path, raw: bytes) -> str:
     >>> decode_text(Path("a.srt"), "café".encode("utf-16"))
     'café'
     """
-    if raw.startswith(codecs.BOM_UTF16_LE) or raw.startswith(codecs.BOM_UTF16_BE):
+    if raw.startswith((codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)):
         try:
             return raw.decode("utf-16")
         except UnicodeDecodeError as exc:
@@ -182,7 +184,7 @@ def _vtt_document(text: str) -> webvtt.WebVTT:
 def _parse_vtt(name: str, text: str) -> tuple[list[SubtitleCue], tuple[str, ...]]:
     try:
         document = _vtt_document(text)
-    except Exception as exc:  # webvtt-py raises several error types for bad input
+    except _VTT_ERRORS as exc:
         line, problem = _locate_vtt_error(text)
         raise SubtitleError(_where(name, line), problem, _FIX) from exc
     cues = [
@@ -208,7 +210,7 @@ def _locate_vtt_error(text: str) -> tuple[int, str]:
     def fails(blocks: int) -> bool:
         try:
             _vtt_document("\n".join(lines[: ends[blocks - 1]]) + "\n")
-        except Exception:
+        except _VTT_ERRORS:
             return True
         return False
 
