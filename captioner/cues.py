@@ -129,12 +129,32 @@ def _resolve(drafts: list[Cue], layout: Layout) -> tuple[tuple[Cue, ...], tuple[
             shift = previous.end_ms - cue.start_ms
             cues.append(replace(cue, start_ms=cue.start_ms + shift, end_ms=max(cue.end_ms, cue.start_ms + shift + layout.min_duration_ms)))
         elif fits:
+            # The continuation is named after the sound that starts it: the earlier cue keeps its id.
             cues[-1] = replace(previous, end_ms=cue.start_ms)
-            cues.append(both)
+            cues.append(replace(both, event_ids=cue.event_ids + previous.event_ids))
         else:
             for event_id in (i for i in cue.event_ids if not i.endswith("-end")):
                 dropped.append(Decision(event_id, False, "layout", "no room on screen beside an earlier caption"))
-    return tuple(_apply_gaps(cues, layout)), tuple(dropped)
+    return tuple(unique_ids(_apply_gaps(cues, layout))), tuple(dropped)
+
+
+def unique_ids(cues: list[Cue]) -> list[Cue]:
+    """Every cue's first id (its WebVTT cue identifier) different from all earlier ones.
+
+    W3C WebVTT requires cue identifiers to be unique within a file. A repeated first id
+    gets a suffix: e0001, e0001-2, e0001-3.
+    """
+    taken: set[str] = set()
+    result = []
+    for cue in cues:
+        first = cue.event_ids[0] if cue.event_ids else ""
+        name, number = first, 1
+        while first and name in taken:
+            number += 1
+            name = f"{first}-{number}"
+        taken.add(name)
+        result.append(replace(cue, event_ids=(name, *cue.event_ids[1:])) if name != first else cue)
+    return result
 
 
 def _apply_gaps(cues: list[Cue], layout: Layout) -> list[Cue]:

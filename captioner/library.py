@@ -182,12 +182,14 @@ def run_batch(
             _ensure_installed(pack_manifest, say)
         tally = _Tally()
         cache = None if options.cluster else str(packs.cache_root())
+        # A user's pack manifest is a path: make it absolute, as workers may start elsewhere.
+        pack = options.pack if options.pack in packs.builtin_packs() else str(Path(options.pack).absolute())
         with _Bar(progress and bool(tasks), tasks) as bar:
             failed_line = bar.wrap(report_failure)
             jobs = {t.item.relative: t for t in tasks}
             # Largest first, so the last files running in parallel are the short ones.
             ordered = sorted(tasks, key=lambda t: -t.fingerprint.size)
-            jobs_in_order = [_job(t, options, cache) for t in ordered]
+            jobs_in_order = [_job(t, options, pack, cache) for t in ordered]
             with closing(dispatch(jobs_in_order, workers=options.workers, cluster=options.cluster)) as results:
                 for drafted in results:
                     task = jobs[drafted.relative]
@@ -229,9 +231,9 @@ def _settings(item: MediaFile, base: dict[str, Any], options: BatchOptions) -> S
     return Settings(settings_digest(parts), base["pack"], base["pack_version"], options.style.name, style_digest, options.fmt, dialogue)
 
 
-def _job(task: _Task, options: BatchOptions, cache: str | None) -> Job:
+def _job(task: _Task, options: BatchOptions, pack: str, cache: str | None) -> Job:
     dialogue = str(task.item.dialogue) if task.item.dialogue else None
-    return Job(str(task.item.path), task.item.relative, options.style, options.fmt, options.pack, cache, dialogue)
+    return Job(str(task.item.path), task.item.relative, options.style, options.fmt, pack, cache, dialogue)
 
 
 def _ensure_installed(manifest: packs.PackManifest, say: Callable[[str], None]) -> None:

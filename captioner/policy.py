@@ -87,7 +87,7 @@ def select_events(events: list[SoundEvent], dialogue: tuple[Span, ...], settings
     if settings.sibling_redundancy:
         alive = _siblings(alive, drop)
     if settings.generic_redundancy:
-        alive = _generics(alive, drop)
+        alive = _generics(alive, settings.cooldown_ms, drop)
     if settings.cooldown_ms > 0:  # before the dialogue rule: a sound judged as a whole
         alive = _repeats(alive, settings.cooldown_ms, drop)
     if settings.dialogue_gate:
@@ -137,8 +137,9 @@ def _parents(alive: list[SoundEvent], settings: Selection, drop: _Drop, notes: d
 
     A child replaces a parent it covers for at least half of the parent's time (a brief car
     horn does not erase a long vehicle sound) when the child is at least child_confidence
-    sure or more salient than the parent. Otherwise the child is dropped: for an unsure
-    guess the broader name is the safer one.
+    sure, more salient than the parent, or at least as sure as a generic parent (whose
+    wording names no source). Otherwise the child is dropped: for an unsure guess the
+    broader name is the safer one.
     Music is special: the music event keeps its own span and takes the child's wording
     when the child reaches music_detail_confidence.
     """
@@ -162,7 +163,8 @@ def _parents(alive: list[SoundEvent], settings: Selection, drop: _Drop, notes: d
                 break
             if _shared_ms(parent, child) * 2 < parent.duration_ms:
                 continue
-            if child.peak_score >= settings.child_confidence or salience(child, settings) > salience(parent, settings):
+            named_better = parent.generic and child.peak_score >= parent.peak_score  # "[siren]" over an equally sure "[alarm]"
+            if child.peak_score >= settings.child_confidence or salience(child, settings) > salience(parent, settings) or named_better:
                 gone.add(parent.event_id)
                 drop(parent, "parent", f"covered by the more specific {child.concept} ({child.event_id})")
             else:
@@ -187,24 +189,38 @@ def _siblings(alive: list[SoundEvent], drop: _Drop) -> list[SoundEvent]:
     return [e for e in alive if e.event_id not in gone]
 
 
-def _generics(alive: list[SoundEvent], drop: _Drop) -> list[SoundEvent]:
+def _generics(alive: list[SoundEvent], cooldown_ms: int, drop: _Drop) -> list[SoundEvent]:
     """A generic concept ("[beeping]", "[alarm blaring]") says nothing that a specific sound
     covering most of its time does not: "[smoke alarm beeping]" already is the beeping.
 
     The specific sound must rank at least as high, or be at least as sure and at most one
     priority step lower (a confidently heard phone names the "alarm" it set off; a dog
-    never hides an alarm).
+    never hides an alarm). A later fragment of a generic sound, within cooldown_ms of one
+    a specific sound named, continues that sound: it extends the specific event instead.
     """
+    by_id = {e.event_id: e for e in alive}
     gone: set[str] = set()
-    for generic in (e for e in alive if e.generic):
-        for other in alive:
-            if other.generic or other.event_id in gone or _shared_ms(generic, other) * 2 < generic.duration_ms:
-                continue
-            if other.priority >= generic.priority or (other.priority == generic.priority - 1 and other.peak_score >= generic.peak_score):
-                gone.add(generic.event_id)
-                drop(generic, "generic", f"the specific {other.concept} ({other.event_id}) names this sound")
-                break
-    return [e for e in alive if e.event_id not in gone]
+    named: dict[str, tuple[str, int]] = {}  # generic concept -> (specific event id, end of the named fragment)
+    for generic in sorted((e for e in alive if e.generic), key=lambda e: e.start_ms):
+        namer = next((o for o in alive if _names(o, generic) and o.event_id not in gone), None)
+        if namer is not None:
+            detail = f"the specific {namer.concept} ({namer.event_id}) names this sound"
+        elif generic.concept in named and generic.start_ms - named[generic.concept][1] < cooldown_ms:
+            namer = by_id[named[generic.concept][0]]
+            by_id[namer.event_id] = replace(namer, end_ms=max(namer.end_ms, generic.end_ms))
+            detail = f"continues the sound {namer.concept} ({namer.event_id}) names"
+        else:
+            continue
+        gone.add(generic.event_id)
+        named[generic.concept] = (namer.event_id, generic.end_ms)
+        drop(generic, "generic", detail)
+    return [by_id[e.event_id] for e in alive if e.event_id not in gone]
+
+
+def _names(specific: SoundEvent, generic: SoundEvent) -> bool:
+    if specific.generic or _shared_ms(generic, specific) * 2 < generic.duration_ms:
+        return False
+    return specific.priority >= generic.priority or (specific.priority == generic.priority - 1 and specific.peak_score >= generic.peak_score)
 
 
 def _dialogue(alive: list[SoundEvent], dialogue: tuple[Span, ...], settings: Selection, drop: _Drop, notes: dict[str, str]) -> list[SoundEvent]:

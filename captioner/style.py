@@ -73,7 +73,7 @@ class Selection:
     length_weight: float = 0.1  # salience for lasting 3 s or more
     evidence_gate: bool = True  # a sound claim needs signal energy at that time
     min_level_db: float = -55.0  # quieter than this is near-silence
-    min_contrast_db: float = 3.0  # event level above the local noise floor
+    min_contrast_db: float = 6.0  # event level above the local noise floor (quietest surroundings)
     safety_confidence: float = 0.5  # a priority-5 sound this sure needs no contrast, only signal (1 = no exemption)
     parent_redundancy: bool = True  # a confident child replaces its parent (car horn > vehicle)
     child_confidence: float = 0.6  # below this a child yields to an equally sure parent
@@ -85,7 +85,7 @@ class Selection:
     dialogue_confidence: float = 0.7  # ... and kept ones need this confidence
     gap_shift_ms: int = 1000  # a short event under dialogue may move this far into a gap (0 = off)
     short_event_ms: int = 2000  # only events shorter than this move
-    cooldown_ms: int = 20000  # same concept again within this joins the earlier cue (0 = off)
+    cooldown_ms: int = 6000  # same concept again within this after it ended joins the earlier cue (0 = off)
     max_cues_per_minute: int = 12  # density cap, most salient kept (0 = no cap)
 
 
@@ -230,13 +230,15 @@ def _check_value(source: str, label: str, hint: Any, value: Any) -> None:
 
 
 def _check_consistency(source: str, style: Style) -> None:
-    d, layout = style.detection, style.layout
+    d, layout, selection = style.detection, style.layout, style.selection
     if d.offset_threshold > d.onset_threshold:
         raise StyleError(source, f"detection.offset_threshold={d.offset_threshold} is above onset_threshold={d.onset_threshold}", "the offset threshold must be the lower one")
     if d.speech_offset > d.speech_onset:
         raise StyleError(source, f"detection.speech_offset={d.speech_offset} is above speech_onset={d.speech_onset}", "the offset threshold must be the lower one")
     if layout.min_duration_ms > layout.max_duration_ms:
         raise StyleError(source, f"layout.min_duration_ms={layout.min_duration_ms} exceeds max_duration_ms={layout.max_duration_ms}", "make the minimum smaller")
+    if selection.gap_shift_ms > layout.sync_tolerance_ms:  # a moved sound cue would lag its sound beyond the tolerance
+        raise StyleError(source, f"selection.gap_shift_ms={selection.gap_shift_ms} exceeds layout.sync_tolerance_ms={layout.sync_tolerance_ms}", "make the gap move at most the sync tolerance")
     if d.patch_hop_ms % 10:
         raise StyleError(source, f"detection.patch_hop_ms={d.patch_hop_ms} is not a multiple of 10", "use a multiple of the 10 ms frame hop")
 

@@ -61,6 +61,7 @@ class Drafted:
 
 
 _PACKS: dict[tuple[str, str | None], packs.LoadedPack] = {}
+_WARM_UP_S = [0.0]  # loading done by the pool initializer, charged to this process's first job
 _PACK_LOCK = threading.Lock()  # Dask may run several jobs per process in threads
 
 
@@ -81,7 +82,7 @@ def _warm_worker(name: str, cache: str | None) -> None:
 
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     with suppress(CaptionerError):  # each job then reports the pack error for its own file
-        _worker_pack(name, cache)
+        _WARM_UP_S[0] = _worker_pack(name, cache)[1]
 
 
 def draft(job: Job) -> Drafted:
@@ -91,6 +92,7 @@ def draft(job: Job) -> Drafted:
     load_s = 0.0
     try:
         pack, load_s = _worker_pack(job.pack, job.cache)
+        load_s, _WARM_UP_S[0] = load_s + _WARM_UP_S[0], 0.0
         track = read_track(Path(job.dialogue)) if job.dialogue else None
         dialogue_name = Path(job.dialogue).name if job.dialogue else ""
         result = pipeline.caption_file(

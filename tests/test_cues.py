@@ -112,3 +112,28 @@ def test_no_end_cue_for_separate_occurrences_joined_into_one() -> None:
 
     rain = change(event("r", 1000, 40000, "rain falling", "rain falls", Kind.AMBIENCE), joined=2)
     assert [c.text for c in cues_of([rain])[0]] == ["[rain falling]"]
+
+
+def test_cue_identifiers_are_unique_when_a_caption_continues_beside_a_new_one() -> None:
+    # W3C WebVTT §4.1 (from memory): a cue identifier must be unique among the file's cues.
+    import io
+
+    import webvtt
+
+    from captioner.formats import WRITERS
+
+    long = event("a", 0, 9000, "first long line of text here", "x")
+    new = event("b", 1800, 2800, "second long line of text", "x")  # too soon to end "a", too late to share its start
+    cues, dropped = cues_of([long, new])
+    assert dropped == ()
+    assert [c.event_ids for c in cues] == [("a",), ("b", "a")]
+    parsed = webvtt.from_buffer(io.StringIO(WRITERS["vtt"](cues, "")))
+    identifiers = [c.identifier for c in parsed]
+    assert identifiers == ["a", "b"]
+
+
+def test_a_repeated_first_id_gets_a_numbered_suffix() -> None:
+    from captioner.cues import Cue, unique_ids
+
+    cues = [Cue(0, 1000, ("[x]",), ("e1",)), Cue(1000, 2000, ("[y]",), ("e1", "e2")), Cue(2000, 3000, ("[z]",), ("e1",))]
+    assert [c.event_ids for c in unique_ids(cues)] == [("e1",), ("e1-2", "e2"), ("e1-3",)]

@@ -138,3 +138,27 @@ def test_overlap_with_dialogue_spans() -> None:
     spans = (Span(0, 1500), Span(2500, 9000))
     assert overlap_ms(1000, 3000, spans) == 1000
     assert overlap_ms(1500, 2500, spans) == 0
+
+
+def test_noise_floor_is_the_quiet_part_of_the_surroundings_not_its_median() -> None:
+    # Dialogue around a sound: loud words with short pauses. The median is the speech level;
+    # the floor (a low percentile) is the pauses, which is what "near silence" means.
+    scores, energy = make_track(level_db=-60.0)
+    words = np.arange(energy.size) % 100 < 80  # 0.8 s of speech, 0.2 s pause
+    energy[words] = -20.0
+    scores[20:22, HORN] = 0.8
+    energy[int(20 * HOP / FRAME) : int((21 * HOP + PATCH) / FRAME)] = -15.0
+    (event,) = events_of(track_of(scores, energy), bridge_ms=0)
+    assert event.background_db == pytest.approx(-20.0)
+    assert event.floor_db == pytest.approx(-60.0)
+    assert event.contrast_db == pytest.approx(5.0)
+    assert event.above_floor_db == pytest.approx(45.0)
+
+
+def test_the_generic_flag_of_a_class_reaches_its_events() -> None:
+    vocabulary = Vocabulary((*VOCAB.entries[:5], ClassEntry(5, "Beep, bleep", "beep", "beeping", "device beeps", Kind.TRANSIENT, 2, None, True)))
+    scores, energy = make_track()
+    scores[10:12, 5] = 0.8
+    scores[20:22, HORN] = 0.8
+    found = {e.concept: e.generic for e in detect_events(track_of(scores, energy), vocabulary, Detection(bridge_ms=0))}
+    assert found == {"beep": True, "car_horn": False}

@@ -10,7 +10,7 @@ from captioner.style import Selection
 from captioner.vocabulary import Kind
 
 # A permissive base so that each test exercises one rule only.
-OPEN = Selection(min_confidence=0.0, min_salience=0.0, evidence_gate=False, parent_redundancy=False, sibling_redundancy=False,
+OPEN = Selection(min_confidence=0.0, min_salience=0.0, evidence_gate=False, parent_redundancy=False, sibling_redundancy=False, generic_redundancy=False,
                  dialogue_gate=False, gap_shift_ms=0, cooldown_ms=0, max_cues_per_minute=0)
 
 
@@ -153,3 +153,74 @@ def test_density_cap_keeps_the_most_salient() -> None:
     assert "e00" in kept  # the loud, high-priority one survives although it comes first
     assert {rules[e] for e in {"e01", "e02", "e03"}} == {"density"}
     assert len(run(events, OPEN)[0]) == 15
+
+
+def test_the_evidence_gate_measures_against_the_noise_floor_not_the_dialogue() -> None:
+    # Under dialogue the median of the surroundings is the speech; the floor is its pauses.
+    under_talk = replace(event("a", "dog", 0, 1000, level_db=-22.0, background_db=-20.0), floor_db=-45.0)
+    over_silence = replace(event("b", "cat", 5000, 6000, level_db=-42.0, background_db=-44.0), floor_db=-45.0)
+    kept, rules = run([under_talk, over_silence], replace(OPEN, evidence_gate=True, min_contrast_db=6.0, safety_confidence=1.0))
+    assert kept == {"a"} and rules["b"] == "evidence"
+
+
+def test_a_confident_safety_sound_passes_the_evidence_gate_without_contrast() -> None:
+    siren = replace(event("s", "siren", 0, 4000, 0.5, priority=5, level_db=-25.0, background_db=-24.0), floor_db=-27.0)
+    horn = replace(event("h", "car_horn", 6000, 7000, 0.9, priority=4, level_db=-25.0, background_db=-24.0), floor_db=-27.0)
+    whisper = replace(event("w", "siren", 9000, 10000, 0.9, priority=5, level_db=-70.0, background_db=-90.0), floor_db=-95.0)
+    gate = replace(OPEN, evidence_gate=True, min_contrast_db=6.0)
+    kept, rules = run([siren, horn, whisper], replace(gate, safety_confidence=0.5))
+    assert kept == {"s"}
+    assert rules["h"] == rules["w"] == "evidence"  # near-silence is never exempt
+    assert run([siren, horn, whisper], replace(gate, safety_confidence=1.0))[0] == set()
+
+
+def test_a_generic_sound_yields_to_a_specific_one_of_the_same_moment() -> None:
+    smoke = event("s", "smoke_alarm", 0, 4000, 0.5, priority=5, parent="alarm")
+    beeping = replace(event("b", "beep", 0, 3000, 0.9, priority=2), generic=True)
+    phone = event("p", "telephone", 10000, 14000, 1.0, priority=4)
+    alarm = replace(event("a", "alarm", 10000, 14000, 0.95, priority=5), generic=True)
+    dog = event("d", "dog", 20000, 22000, 0.99, priority=3)
+    alarm_by_dog = replace(event("x", "alarm", 20000, 22000, 0.5, priority=5), generic=True)
+    events = [smoke, beeping, phone, alarm, dog, alarm_by_dog]
+    kept, rules = run(events, replace(OPEN, generic_redundancy=True))
+    assert kept == {"s", "p", "d", "x"}  # a dog never hides an alarm
+    assert rules["b"] == rules["a"] == "generic"
+    assert run(events, OPEN)[0] == {"s", "b", "p", "a", "d", "x"}
+
+
+def test_a_later_fragment_of_a_named_generic_sound_extends_the_specific_one() -> None:
+    smoke = event("s", "smoke_alarm", 0, 3000, 0.5, priority=5)
+    beeping = replace(event("b", "beep", 0, 3500, 0.9, priority=2), generic=True)
+    more = replace(event("m", "beep", 5000, 7000, 0.9, priority=2), generic=True)
+    selected = select_events([smoke, beeping, more], (), replace(OPEN, generic_redundancy=True, cooldown_ms=6000))
+    assert [(e.event_id, e.start_ms, e.end_ms) for e in selected.kept] == [("s", 0, 7000)]
+    assert {d.event_id: d.rule for d in selected.decisions} == {"s": "kept", "b": "generic", "m": "generic"}
+
+
+def test_an_equally_sure_child_names_a_generic_parent() -> None:
+    alarm = replace(event("a", "alarm", 0, 5000, 0.5, priority=5, level_db=-20.0), generic=True)
+    siren = event("s", "siren", 1000, 5000, 0.5, priority=5, parent="alarm", level_db=-22.0)
+    settings = replace(OPEN, parent_redundancy=True, child_confidence=0.6)
+    assert run([alarm, siren], settings) == ({"s"}, {"a": "parent", "s": "kept"})
+    plain = replace(alarm, generic=False)  # a parent that names its source keeps an unsure child out
+    assert run([plain, siren], settings) == ({"a"}, {"a": "kept", "s": "parent"})
+
+
+def test_default_cooldown_joins_pauses_within_a_sound_but_not_a_new_sound() -> None:
+    # Common practice (North American ring cadence, from memory): 2 s ringing, 4 s silence.
+    rings = [event(f"r{i}", "telephone", i * 6000, i * 6000 + 2000, 0.9, kind=Kind.CONTINUOUS, priority=4) for i in range(3)]
+    later = event("n", "telephone", 30000, 32000, 0.9, kind=Kind.CONTINUOUS, priority=4)  # 16 s after the last ring
+    kept = select_events([*rings, later], (), replace(OPEN, cooldown_ms=Selection().cooldown_ms)).kept
+    assert [(e.event_id, e.start_ms, e.end_ms) for e in kept] == [("r0", 0, 14000), ("n", 30000, 32000)]
+
+
+def test_a_gap_move_may_not_exceed_the_sync_tolerance() -> None:
+    # BBC Subtitle Guidelines (from memory): a caption may lag its sound by at most the sync tolerance.
+    import pytest
+
+    from captioner.errors import StyleError
+    from captioner.style import style_from_mapping
+
+    assert style_from_mapping({"layout": {"sync_tolerance_ms": 1500}, "selection": {"gap_shift_ms": 1500}}).selection.gap_shift_ms == 1500
+    with pytest.raises(StyleError, match="gap_shift_ms=2000 exceeds layout.sync_tolerance_ms=1500"):
+        style_from_mapping({"layout": {"sync_tolerance_ms": 1500}, "selection": {"gap_shift_ms": 2000}})
