@@ -8,7 +8,8 @@ Rules run in a fixed order; the first rule that drops an event names the decisio
                   or it is an unsure child that its surer parent already names
     music      -- a mood/genre/singing detail that is not confident enough to word the music
     sibling    -- another refinement of the same parent scored higher on the same sound
-    generic    -- a sourceless description ("beeping") beside a specific sound of that moment
+    generic    -- a sourceless description ("beeping") beside a specific sound of that moment,
+                  or alone and not sure enough to be worth a caption
     dialogue   -- it sits under dialogue and is too unimportant or too unsure for that
     repeat     -- the same concept again within the cooldown: joined to the earlier event
     density    -- more cues per minute than the style allows; the least salient go
@@ -88,6 +89,8 @@ def select_events(events: list[SoundEvent], dialogue: tuple[Span, ...], settings
         alive = _siblings(alive, drop)
     if settings.generic_redundancy:
         alive = _generics(alive, settings.cooldown_ms, drop)
+    if settings.generic_confidence > 0:
+        alive = _unnamed_generics(alive, settings.generic_confidence, drop)
     if settings.cooldown_ms > 0:  # before the dialogue rule: a sound judged as a whole
         alive = _repeats(alive, settings.cooldown_ms, drop)
     if settings.dialogue_gate:
@@ -215,6 +218,19 @@ def _generics(alive: list[SoundEvent], cooldown_ms: int, drop: _Drop) -> list[So
         named[generic.concept] = (namer.event_id, generic.end_ms)
         drop(generic, "generic", detail)
     return [by_id[e.event_id] for e in alive if e.event_id not in gone]
+
+
+def _unnamed_generics(alive: list[SoundEvent], confidence: float, drop: _Drop) -> list[SoundEvent]:
+    """A generic sound no specific one names ("[animal calling]", "[beeping]") tells a viewer
+    little unless the classifier is sure of it, so it needs `confidence`. Alerts (priority 4
+    and 5) are exempt: "[alarm blaring]" warns even without its source."""
+    survivors = []
+    for event in alive:
+        if event.generic and event.priority < 4 and event.peak_score < confidence:
+            drop(event, "generic", f"names no source and peak score {event.peak_score:.2f} < {confidence}")
+        else:
+            survivors.append(event)
+    return survivors
 
 
 def _names(specific: SoundEvent, generic: SoundEvent) -> bool:

@@ -79,6 +79,7 @@ class Selection:
     child_confidence: float = 0.6  # below this a child yields to an equally sure parent
     sibling_redundancy: bool = True  # overlapping siblings are one sound: keep the surest
     generic_redundancy: bool = True  # "[beeping]" is left out beside a specific sound of the same moment
+    generic_confidence: float = 0.8  # a generic sound no specific one names needs this peak score (alerts exempt; 0 = off)
     music_detail_confidence: float = 0.6  # mood/genre/singing wording only above this
     dialogue_gate: bool = True
     dialogue_min_priority: int = 3  # under dialogue, lower priorities are dropped ...
@@ -154,6 +155,7 @@ _RANGES: dict[str, tuple[float, float]] = {
     "min_level_db": (-120.0, 0.0),
     "min_contrast_db": (-60.0, 60.0),
     "safety_confidence": (0.0, 1.0),
+    "generic_confidence": (0.0, 1.0),
 }
 
 

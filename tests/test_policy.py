@@ -11,7 +11,7 @@ from captioner.vocabulary import Kind
 
 # A permissive base so that each test exercises one rule only.
 OPEN = Selection(min_confidence=0.0, min_salience=0.0, evidence_gate=False, parent_redundancy=False, sibling_redundancy=False, generic_redundancy=False,
-                 dialogue_gate=False, gap_shift_ms=0, cooldown_ms=0, max_cues_per_minute=0)
+                 generic_confidence=0.0, dialogue_gate=False, gap_shift_ms=0, cooldown_ms=0, max_cues_per_minute=0)
 
 
 def event(event_id: str, concept: str, start_ms: int, end_ms: int, peak: float = 0.8, *, kind: Kind = Kind.TRANSIENT, priority: int = 3,
@@ -204,6 +204,29 @@ def test_an_equally_sure_child_names_a_generic_parent() -> None:
     assert run([alarm, siren], settings) == ({"s"}, {"a": "parent", "s": "kept"})
     plain = replace(alarm, generic=False)  # a parent that names its source keeps an unsure child out
     assert run([plain, siren], settings) == ({"a"}, {"a": "kept", "s": "parent"})
+
+
+def test_a_lone_sourceless_sound_needs_a_sure_classifier_but_an_alert_does_not() -> None:
+    animal = replace(event("a", "animal", 0, 2000, 0.68, priority=2, phrase="animal calling"), generic=True)
+    sure = replace(animal, event_id="s", start_ms=10000, end_ms=12000, peak_score=0.91)
+    beeping = replace(event("b", "beep", 20000, 21000, 0.5, priority=2), generic=True)
+    alarm = replace(event("x", "alarm", 30000, 33000, 0.5, priority=5, kind=Kind.CONTINUOUS), generic=True)
+    dog = event("d", "dog", 40000, 41000, 0.5, parent="pet")  # names its source: not affected
+    events = [animal, sure, beeping, alarm, dog]
+    kept, rules = run(events, replace(OPEN, generic_confidence=Selection().generic_confidence))  # on by default
+    assert kept == {"s", "x", "d"}
+    assert rules["a"] == rules["b"] == "generic"
+    assert run(events, OPEN)[0] == {"a", "s", "b", "x", "d"}  # 0 switches the rule off
+
+
+def test_the_animal_umbrellas_are_worded_without_a_source() -> None:
+    # Their wording ("animal calling", "farm animals calling") names no animal; the specific ones do.
+    from importlib import resources
+
+    import yaml
+
+    data = yaml.safe_load(resources.files("captioner").joinpath("data/yamnet_vocabulary.yaml").read_text(encoding="utf-8"))
+    assert [data[c].get("generic", False) for c in ("animal", "pet", "livestock", "dog", "horse", "poultry")] == [True, True, True, False, False, False]
 
 
 def test_default_cooldown_joins_pauses_within_a_sound_but_not_a_new_sound() -> None:

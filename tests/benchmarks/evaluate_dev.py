@@ -42,6 +42,7 @@ ABLATIONS: list[tuple[str, str, dict[str, Any]]] = [
     ("parent/child redundancy off", "selection", {"parent_redundancy": False}),
     ("sibling redundancy off", "selection", {"sibling_redundancy": False}),
     ("generic/specific redundancy off", "selection", {"generic_redundancy": False}),
+    ("sourceless sounds at any confidence (generic_confidence 0)", "selection", {"generic_confidence": 0.0}),
     ("no safety exemption from the evidence gate", "selection", {"safety_confidence": 1.0}),
     ("dialogue rule off", "selection", {"dialogue_gate": False}),
     ("move into dialogue gaps off", "selection", {"gap_shift_ms": 0}),
