@@ -104,7 +104,8 @@ def find_media(folder: Path, *, output_dir: Path | None = None, fmt: Format = "v
 
 @dataclass(frozen=True, slots=True)
 class BatchOptions:
-    """Everything a batch run needs; `workers` is ignored when `cluster` is given."""
+    """Everything a batch run needs. `workers`: processes on this machine, 0 = in this
+    process; ignored when `cluster` (a Dask scheduler address) is given."""
 
     folder: Path
     style: Style
@@ -133,7 +134,9 @@ def run_batch(
 ) -> Summary:
     """Caption every new or changed media file of a library; see the module notes.
 
-    `say` gets notices, `report_failure` one line per failed file as it happens.
+    `say` gets notices, `report_failure` one line per failed file as it happens. Local
+    workers are started with "spawn": a script calling this needs the usual
+    `if __name__ == "__main__":` guard.
 
     Raises:
         MediaError: the library folder does not exist.
@@ -178,7 +181,7 @@ def run_batch(
                 report_failure(f"{previous.error} (in an earlier run; --retry-failed tries again)")
             else:
                 tasks.append(_Task(item, fp, settings, previous))
-        if not options.cluster and tasks and options.workers > 1:
+        if not options.cluster and tasks and options.workers > 0:
             _ensure_installed(pack_manifest, say)
         tally = _Tally()
         cache = None if options.cluster else str(packs.cache_root())
@@ -207,7 +210,8 @@ def run_batch(
             media_ms=tally.media_ms,
             cues=tally.cues,
             wall_s=time.perf_counter() - began,
-            workers=_worker_count(options),
+            workers=0 if options.cluster else options.workers,
+            cluster=options.cluster,
             edited=tuple(tally.edited),
             failures=tuple(failures_now + failures_before),
             merged=tally.merged,
@@ -241,10 +245,6 @@ def _ensure_installed(manifest: packs.PackManifest, say: Callable[[str], None]) 
     if manifest.is_downloaded and not packs.is_installed(manifest):
         say(f"first use: installing model pack {manifest.name} into {manifest.root}")
         packs.install(manifest, say=say)
-
-
-def _worker_count(options: BatchOptions) -> int:
-    return 0 if options.cluster else options.workers
 
 
 class _Tally:

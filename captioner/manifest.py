@@ -234,11 +234,12 @@ class Summary:
     media_ms: int  # duration of the files captioned in this run
     cues: int
     wall_s: float
-    workers: int  # local worker processes; 0 = a Dask cluster
+    workers: int  # local worker processes (0: in the calling process, or on the cluster)
     edited: tuple[str, ...]  # outputs a person changed; the new draft went beside each as .new
     failures: tuple[tuple[str, str], ...]  # (file, error), this run's and earlier ones
     merged: int  # files that also got a merged dialogue + sound track
     manifest: str
+    cluster: str | None = None  # the Dask scheduler's address, when the work went there
 
     @property
     def ok(self) -> bool:
@@ -263,7 +264,7 @@ def summary_json(summary: Summary) -> dict[str, Any]:
 
 def summary_table(summary: Summary) -> str:
     """A short human summary of a run."""
-    workers = "a Dask cluster" if summary.workers == 0 else f"{summary.workers} worker{'s' if summary.workers != 1 else ''}"
+    workers = "on a Dask cluster" if summary.cluster else f"{summary.workers} worker{'s' if summary.workers != 1 else ''}"
     lines = [
         f"{'files':<8}{'done':>8}{'skipped':>9}{'failed':>8}{'total':>8}",
         f"{'':<8}{summary.done:>8}{summary.skipped:>9}{summary.failed + summary.failed_before:>8}{summary.files:>8}",

@@ -2,8 +2,8 @@
 
 `draft(job)` is all a worker runs. It reads the media and the dialogue subtitles (merging
 the sound cues into them), loads the model pack once per process, and returns the outputs
-as text; it writes
-nothing, so workers need only read access to the media, by the same path as the driver.
+as text; it writes nothing, so workers need only read access to the media, by the same
+path as the driver.
 `dispatch` runs jobs on one of three executors (in this process, a local process pool,
 or an existing Dask scheduler) and yields results as they finish.
 """
@@ -117,7 +117,8 @@ def draft(job: Job) -> Drafted:
 
 
 class _Inline(Executor):
-    """Runs each job at submit time in this process (one worker: no process to start)."""
+    """Runs each job at submit time in this process (for tests and embedding: this process's
+    math libraries keep their own thread settings)."""
 
     def submit(self, fn: Callable[..., Any], /, *args: Any, **kwargs: Any) -> Future[Any]:
         future: Future[Any] = Future()
@@ -167,8 +168,8 @@ def dispatch(jobs: list[Job], *, workers: int = 1, cluster: str | None = None) -
 
 def _local_executor(workers: int, job: Job) -> tuple[Executor, int, Callable[..., None]]:
     """An executor, how many jobs to keep submitted (two per worker: none waits idle for
-    its next file), and how to close it."""
-    if workers <= 1:
+    its next file), and how to close it. 0 workers: run in this process."""
+    if workers <= 0:
         return _Inline(), 1, lambda interrupted: None
     import multiprocessing
 

@@ -182,7 +182,10 @@ def test_changed_file_is_redone_and_a_hand_edit_is_kept(tmp_path: Path, capsys: 
     assert status == 0 and (summary["done"], summary["skipped"]) == (1, 1)
     assert summary["edited"] == ["a.sounds.vtt"]
     assert (lib / "a.sounds.vtt").read_text() == edited  # the person's version is untouched
-    assert len(webvtt.read(str(lib / "a.sounds.vtt.new")).captions) >= 1  # the new draft beside it
+    draft = webvtt.read(str(lib / "a.sounds.vtt.new"))  # the new draft beside it, valid WebVTT
+    assert len(draft.captions) == rows(lib)["a.wav"]["cues"]
+    assert (lib / "a.sounds.vtt.new").read_text() != edited
+    assert json.loads(rows(lib)["a.wav"]["outputs"])["a.sounds.vtt.new"] == manifest.file_hash(lib / "a.sounds.vtt.new")
     assert snapshot(lib)["b.sounds.vtt"] == b_before
     # Outputs we wrote and nobody touched are simply replaced: no .new for them.
     assert not (lib / "a.sounds.json.new").exists()
@@ -201,7 +204,7 @@ def test_outdir_mirrors_the_library(tmp_path: Path, capsys: pytest.CaptureFixtur
 def interrupted_then_resumed(lib: Path, monkeypatch: pytest.MonkeyPatch, patch: Any, check: Any = None) -> None:
     """Run with `patch` applied until it raises KeyboardInterrupt, `check` the state left
     behind, then run again cleanly."""
-    options = library.BatchOptions(folder=lib, style=load_style("brackets"), workers=1)
+    options = library.BatchOptions(folder=lib, style=load_style("brackets"), workers=0)
     with monkeypatch.context() as m:
         patch(m)
         with pytest.raises(KeyboardInterrupt):
@@ -228,7 +231,7 @@ def three_files(tmp_path: Path, pack: object) -> tuple[Path, dict[str, tuple[int
         beeps(lib / f"{name}.wav", hz)
     clean = tmp_path / "clean"
     shutil.copytree(lib, clean)
-    assert library.run_batch(library.BatchOptions(folder=clean, style=load_style("brackets"), workers=1)).ok
+    assert library.run_batch(library.BatchOptions(folder=clean, style=load_style("brackets"), workers=0)).ok
     return lib, snapshot(clean)
 
 
@@ -306,7 +309,7 @@ def test_sigkill_at_any_moment_then_resume(three_files: tuple[Path, dict[str, tu
         os.killpg(process.pid, signal.SIGKILL)
     process.wait()
     print("killed" if process.returncode == -signal.SIGKILL else "finished", "with", sum(r["status"] == "done" for r in _rows_or_empty(lib)), "file(s) done")
-    summary = library.run_batch(library.BatchOptions(folder=lib, style=load_style("brackets"), workers=1))
+    summary = library.run_batch(library.BatchOptions(folder=lib, style=load_style("brackets"), workers=0))
     assert summary.ok and summary.done + summary.skipped == 3 and not summary.edited
     assert_complete(lib, reference)
 
@@ -332,7 +335,7 @@ def test_worker_processes_and_a_dask_cluster_write_what_one_process_writes(three
     (lib / manifest.MANIFEST_NAME).unlink()
     with distributed.LocalCluster(n_workers=2, processes=True, threads_per_worker=1, host="127.0.0.1", dashboard_address=None) as cluster:
         summary = library.run_batch(library.BatchOptions(folder=lib, style=style, cluster=cluster.scheduler_address))
-    assert summary.ok and summary.done == 3 and summary.workers == 0
+    assert summary.ok and summary.done == 3 and summary.cluster == cluster.scheduler_address
     assert {k: v[1] for k, v in snapshot(lib).items()} == {k: v[1] for k, v in reference.items()}
     assert all(f":{os.getpid()}" not in r["worker"] for r in rows(lib).values())
 
