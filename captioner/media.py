@@ -130,7 +130,13 @@ def decode_chunks(
     if sample_rate <= 0 or chunk_seconds <= 0:
         raise ValueError(f"sample_rate={sample_rate} and chunk_seconds={chunk_seconds} must be > 0")
     args = (
-        ffmpeg.input(str(path))[f"a:{stream.index}"]
+        # The input-side -vn/-sn/-dn keep the demuxer from handing over other streams, and
+        # whole-second frames make ffmpeg write the pipe in large blocks: both save CPU that
+        # the classifier needs on a 2-core machine.
+        ffmpeg.input(str(path), vn=None, sn=None, dn=None)[f"a:{stream.index}"]
+        .filter("aformat", sample_fmts="flt", channel_layouts="mono")
+        .filter("aresample", sample_rate)
+        .filter("asetnsamples", n=sample_rate, p=0)
         .output("pipe:", format="f32le", acodec="pcm_f32le", ac=1, ar=sample_rate)
         .global_args("-nostdin", "-v", "error")
         .compile(cmd=ffmpeg_executable())
