@@ -6,7 +6,6 @@ re-runs the pure part of the pipeline on the same score tracks with one rule swi
 a time and scores each variant. Optionally repeats the default run at other patch hops to
 compare timing accuracy with classifier cost. Not collected by pytest.
 
-    python tests/benchmarks/evaluate_dev.py                        # ../shared/eval-dev beside the repo
     python tests/benchmarks/evaluate_dev.py EVAL_DIR --hops 480,240,160
     python tests/benchmarks/evaluate_dev.py EVAL_DIR --keep out/   # keep the caption files
 
@@ -31,8 +30,6 @@ from captioner.formats import WRITERS
 from captioner.scores import ScoreTrack
 from captioner.style import Style, load_style, replace
 
-REPO = Path(__file__).resolve().parents[2]
-DEFAULT_EVAL = REPO.parent / "shared" / "eval-dev"
 
 # Each variant switches one rule off (or back to a plain alternative) through settings alone.
 ABLATIONS: list[tuple[str, str, dict[str, Any]]] = [
@@ -112,7 +109,7 @@ HEADER = "| run | F1 | P | R | events found | cues | onset error (s) | false ala
 
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
-    parser.add_argument("eval_dir", nargs="?", type=Path, default=DEFAULT_EVAL)
+    parser.add_argument("eval_dir", type=Path, help="folder with devNN.wav, truth.csv, dialogue.csv, files.csv, concepts.yaml and score.py")
     parser.add_argument("--style", default="brackets", help="style preset or file (default: brackets, the default style)")
     parser.add_argument("--hops", default="", help="also run these patch hops in ms, e.g. 480,240,160")
     parser.add_argument("--keep", type=Path, help="write the caption files of every run under this folder")
