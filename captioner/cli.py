@@ -38,13 +38,13 @@ def _parser() -> argparse.ArgumentParser:
         formatter_class=argparse.RawDescriptionHelpFormatter,
         epilog=(
             "examples:\n"
-            "  captioner caption demo.mp4                      # writes demo.vtt beside it\n"
+            "  captioner caption demo.mp4                      # writes demo.sounds.vtt beside it\n"
             "  captioner caption demo.mp4 -o - --explain       # print cues and the decisions\n"
             "  captioner caption show.mkv --audio-stream 1 --format srt --dialogue show.en.srt"
         ),
     )
     caption.add_argument("input", type=Path, help="video or audio file (anything ffmpeg reads)")
-    caption.add_argument("-o", "--output", help="caption file to write ('-' = standard output; default: INPUT with .vtt/.srt)")
+    caption.add_argument("-o", "--output", help="caption file to write ('-' = standard output; default: NAME.sounds.vtt/.srt beside INPUT)")
     caption.add_argument("--format", choices=("vtt", "srt"), help="output format (default: from -o's extension, else vtt)")
     caption.add_argument("--style", default="brackets", help="style preset name (see `captioner styles`) or a style .yaml file")
     caption.add_argument("--dialogue", type=Path, help="existing dialogue subtitles (.vtt/.srt): their times mark dialogue")
@@ -88,14 +88,14 @@ def _parser() -> argparse.ArgumentParser:
         formatter_class=argparse.RawDescriptionHelpFormatter,
         epilog=(
             "examples:\n"
-            "  captioner review demo.mp4 -o demo.review.html          # uses demo.vtt and demo.json beside it\n"
+            "  captioner review demo.mp4 -o demo.review.html          # uses demo.sounds.vtt and demo.sounds.json beside it\n"
             "  captioner review talk.wav --captions talk.sounds.srt --events-json talk.json -o talk.html\n"
             "  captioner caption demo.mp4 --update                    # after saving your edits as demo.vtt"
         ),
     )
     review.add_argument("input", type=Path, help="the video or audio file the captions belong to (the page links to it by relative path)")
-    review.add_argument("--captions", type=Path, help="caption track to review (default: INPUT with .vtt, else .srt)")
-    review.add_argument("--events-json", type=Path, help="sidecar from `caption --events-json`: score curves, dialogue, dropped candidates (default: INPUT with .json, if present)")
+    review.add_argument("--captions", type=Path, help="caption track to review (default: NAME.sounds.vtt beside INPUT, else NAME.sounds.srt)")
+    review.add_argument("--events-json", type=Path, help="sidecar from `caption --events-json`: score curves, dialogue, dropped candidates (default: NAME.sounds.json beside INPUT, if present)")
     review.add_argument("-o", "--output", type=Path, required=True, help="HTML page to write")
     review.add_argument("--force", action="store_true", help="replace an existing page")
 
@@ -313,7 +313,9 @@ def _output_target(args: argparse.Namespace) -> tuple[str, Path | None]:
         suffix = output.suffix.lower().lstrip(".")
         return args.format or (suffix if suffix in ("vtt", "srt") else "vtt"), output
     fmt = args.format or "vtt"
-    return fmt, args.input.with_suffix(f".{fmt}")
+    from .formats import sound_track_path
+
+    return fmt, sound_track_path(args.input, fmt)
 
 
 def _batch(args: argparse.Namespace) -> int:

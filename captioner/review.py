@@ -23,6 +23,7 @@ from urllib.parse import quote
 
 from .cues import word
 from .errors import CaptionerError, MediaError, SubtitleError
+from .formats import sound_track_path
 from .formats.subtitles import SubtitleTrack, plain_lines, read_track
 from .style import Wording, load_style
 from .update import note_blocks
@@ -53,8 +54,8 @@ def media_kind(path: Path) -> MediaKind:
 
 
 def default_captions(media: Path) -> Path:
-    """The caption file `captioner caption` writes by default: INPUT.vtt, else INPUT.srt."""
-    vtt, srt = media.with_suffix(".vtt"), media.with_suffix(".srt")
+    """The caption file `captioner caption` writes by default: NAME.sounds.vtt, else .srt."""
+    vtt, srt = sound_track_path(media, "vtt"), sound_track_path(media, "srt")
     return srt if srt.is_file() and not vtt.is_file() else vtt
 
 
@@ -70,8 +71,8 @@ def load_inputs(media: Path, captions: Path | None, sidecar: Path | None) -> Rev
         raise MediaError(media, "file not found", "check the path")
     captions_path = Path(captions) if captions else default_captions(media)
     track = read_track(captions_path)
-    if sidecar is None and media.with_suffix(".json").is_file():
-        sidecar = media.with_suffix(".json")
+    if sidecar is None and sound_track_path(media, "json").is_file():
+        sidecar = sound_track_path(media, "json")
     return ReviewInputs(media, track, captions_path, _read_sidecar(sidecar) if sidecar else None)
 
 

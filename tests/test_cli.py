@@ -49,11 +49,20 @@ def test_malformed_style_file(tmp_path: Path, capsys: pytest.CaptureFixture[str]
 
 def test_existing_output_is_not_overwritten(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     audio = write_wav(tmp_path / "a.wav", tone(1.0))
-    edited = tmp_path / "a.vtt"
+    edited = tmp_path / "a.sounds.vtt"  # the default output name beside a.wav
     edited.write_text("WEBVTT\n\n00:00.000 --> 00:01.000\n[hand edit]\n")
     assert main(["caption", str(audio), "--quiet"]) == 2
-    assert "a.vtt: already exists" in _error_line(capsys)
+    assert "a.sounds.vtt: already exists" in _error_line(capsys)
     assert "[hand edit]" in edited.read_text()
+
+
+def test_default_output_never_takes_the_dialogue_subtitle_name(tmp_path: Path, pack: object) -> None:
+    audio = write_wav(tmp_path / "talk.wav", np.concatenate([np.zeros(32000), tone(2.0), np.zeros(32000)]))
+    dialogue = tmp_path / "talk.vtt"
+    dialogue.write_text("WEBVTT\n\n00:00.000 --> 00:01.000\nHello there.\n")
+    assert main(["caption", str(audio), "--quiet", "--force"]) == 0
+    assert dialogue.read_text().endswith("Hello there.\n")
+    assert webvtt.read(str(tmp_path / "talk.sounds.vtt")).captions
 
 
 def test_unwritable_output_folder(tmp_path: Path, capsys: pytest.CaptureFixture[str], pack: object) -> None:

@@ -113,7 +113,7 @@ def test_review_refuses_to_overwrite_a_page(review_files: dict[str, Path], capsy
 def test_review_names_a_missing_caption_file(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     media = write_wav(tmp_path / "a.wav", tone(1.0))
     assert main(["review", str(media), "-o", str(tmp_path / "a.html")]) == 2
-    assert "a.vtt: subtitle file not found" in capsys.readouterr().err
+    assert "a.sounds.vtt: subtitle file not found" in capsys.readouterr().err
     assert not (tmp_path / "a.html").exists()
 
 

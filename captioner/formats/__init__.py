@@ -16,6 +16,18 @@ Format = Literal["vtt", "srt"]
 WRITERS: dict[str, Callable[[Sequence[Cue], str], str]] = {"vtt": webvtt.dumps, "srt": srt.dumps}
 
 
+def sound_track_path(media: Path, suffix: str) -> Path:
+    """Default output beside a media file: NAME.sounds.vtt / .srt / .json.
+
+    Never NAME.vtt: players load that as the video's subtitles and editors keep their
+    dialogue there, so a draft written under that name could shadow or replace it.
+
+    >>> sound_track_path(Path("clips/talk.mp4"), "vtt").as_posix()
+    'clips/talk.sounds.vtt'
+    """
+    return Path(media).with_name(f"{Path(media).stem}.sounds.{suffix}")
+
+
 def write_atomic(path: Path, text: str, *, force: bool = False) -> None:
     """Write text as UTF-8 via a temporary file and a rename, so a crash never leaves half a file.
 
