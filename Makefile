@@ -5,7 +5,7 @@ VENV := .venv
 BIN := $(VENV)/bin
 READY := $(VENV)/.installed
 
-.PHONY: demo test bench clean
+.PHONY: demo test check bench clean
 
 $(READY): pyproject.toml
 	$(PYTHON) -m venv $(VENV)
@@ -14,10 +14,16 @@ $(READY): pyproject.toml
 	touch $(READY)
 
 demo: $(READY)
-	$(BIN)/captioner caption demo_media/demo.mp4 -o - --explain --force
+	$(BIN)/captioner caption demo_media/demo.mp4 -o - --explain
 
 test: $(READY)
 	$(BIN)/python -m pytest
+
+# Lint and type checks (pinned tool versions in the `check` extra).
+check: $(READY)
+	$(BIN)/python -m pip install --quiet -e '.[test,check]'
+	$(BIN)/ruff check captioner tests
+	$(BIN)/mypy
 
 bench: $(READY)
 	$(BIN)/python tests/benchmarks/speed.py

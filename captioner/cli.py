@@ -7,7 +7,7 @@ import json
 import sys
 import traceback
 import warnings
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -193,11 +193,21 @@ def _warnings_to_stderr() -> Iterator[None]:
         print(f"captioner: warning: {message}", file=sys.stderr)
 
     previous = warnings.showwarning
-    warnings.showwarning = show  # type: ignore[assignment]
+    warnings.showwarning = show
     try:
         yield
     finally:
         warnings.showwarning = previous
+
+
+def _notices(quiet: bool) -> Callable[[str], None]:
+    """Where notices go: stderr with the program's name, or nowhere with --quiet."""
+
+    def say(message: str) -> None:
+        if not quiet:
+            print(f"captioner: {message}", file=sys.stderr)
+
+    return say
 
 
 def _caption(args: argparse.Namespace) -> int:
@@ -219,7 +229,7 @@ def _caption(args: argparse.Namespace) -> int:
     updating = args.update and update.updatable(output, merge=args.merge)
     _refuse_overwrite((output, args.events_json), (args.input, args.dialogue), force=args.force or updating)
     dialogue = dialogue_spans(track.cues) if track is not None else None
-    say = (lambda message: None) if args.quiet else (lambda message: print(f"captioner: {message}", file=sys.stderr))
+    say = _notices(args.quiet)
     pack = packs.load_pack(args.model or packs.DEFAULT_PACK, cache=packs.cache_root(), say=say)
     with progress_bar(enabled=not args.quiet, label=args.input.name) as bar:
         result = pipeline.caption_file(
@@ -337,7 +347,7 @@ def _batch(args: argparse.Namespace) -> int:
         cluster=args.cluster,
         retry_failed=args.retry_failed,
     )
-    say = (lambda message: None) if args.quiet else (lambda message: print(f"captioner: {message}", file=sys.stderr))
+    say = _notices(args.quiet)
     summary = library.run_batch(
         options,
         progress=not (args.quiet or args.json),
@@ -358,11 +368,11 @@ def _models(args: argparse.Namespace) -> int:
     if args.action == "install":
         manifest = packs.read_manifest(args.model or packs.DEFAULT_PACK, cache)
         if manifest.is_downloaded:
-            packs.install(manifest, wheel_dir=args.from_wheel_dir, say=lambda m: print(f"captioner: {m}", file=sys.stderr))
+            packs.install(manifest, wheel_dir=args.from_wheel_dir, say=_notices(False))
         packs.verify(manifest)
         print(f"{manifest.name}: ready in {manifest.root}")
         return EXIT_OK
-    for name, path in packs.builtin_packs().items():
+    for name in packs.builtin_packs():
         manifest = packs.read_manifest(name, cache)
         state = "installed" if packs.is_installed(manifest) else "not installed (captioner models install)"
         print(f"{name:<14} {state:<12}  {manifest.root}")

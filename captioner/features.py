@@ -7,7 +7,6 @@ librosa in the tests).
 
 from __future__ import annotations
 
-from collections.abc import Iterator
 from dataclasses import dataclass
 
 import numpy as np
@@ -66,28 +65,31 @@ def _periodic_hann(length: int) -> np.ndarray:
     return (0.5 - 0.5 * np.cos(2.0 * np.pi * np.arange(length) / length)).astype(np.float32)
 
 
-def log_mel(samples: np.ndarray, frontend: Frontend, filterbank: np.ndarray | None = None) -> np.ndarray:
-    """Log-mel frames of mono float32 audio, shape (n_frames, n_mels), no centering.
+def _framed(samples: np.ndarray, frontend: Frontend) -> np.ndarray:
+    """Analysis frames, shape (n_frames, win_length); n_frames = 1 + (n - win) // hop (0 when too short)."""
+    n_frames = 0 if samples.size < frontend.win_length else 1 + (samples.size - frontend.win_length) // frontend.hop_length
+    starts = np.arange(n_frames) * frontend.hop_length
+    frames: np.ndarray = samples[starts[:, None] + np.arange(frontend.win_length)].reshape(n_frames, frontend.win_length)
+    return frames
 
-    n_frames = 1 + (len(samples) - win_length) // hop_length (0 when too short).
+
+def analyse(samples: np.ndarray, frontend: Frontend, filterbank: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Log-mel frames (n_frames, n_mels) and their RMS levels in dBFS (n_frames,), no centering.
+
+    Both come from the same framing, computed once.
     """
     filterbank = mel_filterbank(frontend) if filterbank is None else filterbank
-    n_frames = 0 if samples.size < frontend.win_length else 1 + (samples.size - frontend.win_length) // frontend.hop_length
-    if n_frames == 0:
-        return np.zeros((0, frontend.n_mels), dtype=np.float32)
-    starts = np.arange(n_frames) * frontend.hop_length
-    frames = samples[starts[:, None] + np.arange(frontend.win_length)] * _periodic_hann(frontend.win_length)
-    magnitude = np.abs(np.fft.rfft(frames, n=frontend.n_fft, axis=1)).astype(np.float32)
-    return np.log(magnitude @ filterbank.T + frontend.log_offset).astype(np.float32)
-
-
-def frame_energy_db(samples: np.ndarray, frontend: Frontend) -> np.ndarray:
-    """RMS level in dBFS of each analysis frame (same framing as `log_mel`), shape (n_frames,)."""
-    n_frames = 0 if samples.size < frontend.win_length else 1 + (samples.size - frontend.win_length) // frontend.hop_length
-    starts = np.arange(n_frames) * frontend.hop_length
-    frames = samples[starts[:, None] + np.arange(frontend.win_length)]
+    frames = _framed(samples, frontend)
     power = np.mean(np.square(frames, dtype=np.float64), axis=1)
-    return (10.0 * np.log10(power + 1e-10)).astype(np.float32)
+    energy_db: np.ndarray = (10.0 * np.log10(power + 1e-10)).astype(np.float32)
+    magnitude = np.abs(np.fft.rfft(frames * _periodic_hann(frontend.win_length), n=frontend.n_fft, axis=1)).astype(np.float32)
+    mel: np.ndarray = np.log(magnitude @ filterbank.T + frontend.log_offset).astype(np.float32)
+    return mel, energy_db
+
+
+def log_mel(samples: np.ndarray, frontend: Frontend, filterbank: np.ndarray | None = None) -> np.ndarray:
+    """Log-mel frames of mono float32 audio, shape (n_frames, n_mels), no centering."""
+    return analyse(samples, frontend, filterbank)[0]
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -123,8 +125,7 @@ class PatchStream:
     def push(self, chunk: np.ndarray) -> PatchBlock:
         """Add samples; return the patches (and frame energies) that are now complete."""
         buffer = np.concatenate([self._samples, chunk.astype(np.float32, copy=False)])
-        frames = log_mel(buffer, self.frontend, self._filterbank)
-        energy = frame_energy_db(buffer, self.frontend)
+        frames, energy = analyse(buffer, self.frontend, self._filterbank)
         consumed = frames.shape[0] * self.frontend.hop_length
         self._samples = buffer[consumed:]
         self.frames_seen += frames.shape[0]

@@ -94,7 +94,7 @@ def probe(path: Path) -> MediaInfo:
     if "Input #0" not in text:
         reason = _last_error_line(text, path) or "ffmpeg cannot read it"
         raise MediaError(path, f"not a readable media file ({reason})", "check that it plays; re-export it if it is damaged")
-    streams = []
+    streams: list[AudioStream] = []
     for match in _STREAM_LINE.finditer(text):
         streams.append(AudioStream(len(streams), match.group(2).strip(), "(default)" in match.group(2)))
     duration = _DURATION.search(text)

@@ -335,7 +335,8 @@ class OnnxClassifier:
             values = (values - zero_point) * scale
         if self.apply_sigmoid:
             values = 1.0 / (1.0 + np.exp(-np.clip(values, -60.0, 60.0)))
-        return values.astype(np.float32)
+        probabilities: np.ndarray = values.astype(np.float32)
+        return probabilities
 
 
 def _quantization(graph: Any, tensor: str, op_type: str, *, as_input: bool) -> tuple[float, float] | None:

@@ -52,7 +52,10 @@ class Selected:
     decisions: tuple[Decision, ...]
 
 
-def salience(event: SoundEvent, settings: Selection = Selection()) -> float:
+_DEFAULTS = Selection()
+
+
+def salience(event: SoundEvent, settings: Selection = _DEFAULTS) -> float:
     """How much a viewer needs this sound: confidence, priority, loudness and length.
 
     Peak score, plus priority_weight per priority step above 3 (alarms 5, room tone 1),

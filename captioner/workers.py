@@ -109,7 +109,7 @@ def draft(job: Job) -> Drafted:
         return Drafted(job.relative, "", result.track.duration_ms, len(result.cues), texts, time.perf_counter() - began, load_s, worker, pack.manifest.version)
     except CaptionerError as exc:
         return Drafted(job.relative, str(exc), caption_s=time.perf_counter() - began, load_s=load_s, worker=worker)
-    except Exception as exc:  # noqa: BLE001  one file must never stop the others, whatever goes wrong in it
+    except Exception as exc:
         return Drafted(job.relative, f"{job.media}: unexpected {type(exc).__name__}: {exc}; please report it", caption_s=time.perf_counter() - began, worker=worker)
 
 
@@ -124,7 +124,7 @@ class _Inline(Executor):
         future: Future[Any] = Future()
         try:
             future.set_result(fn(*args, **kwargs))
-        except Exception as exc:  # noqa: BLE001  delivered through the future, as a pool would
+        except Exception as exc:
             future.set_exception(exc)
         return future
 
@@ -155,7 +155,7 @@ def dispatch(jobs: list[Job], *, workers: int = 1, cluster: str | None = None) -
                     except BrokenProcessPool:
                         broken = True
                         yield Drafted(job.relative, f"{job.media}: the worker process stopped while captioning it (out of memory, or a crash); run again with --retry-failed")
-                    except Exception as exc:  # noqa: BLE001  a cluster reports lost workers and the like here
+                    except Exception as exc:
                         yield Drafted(job.relative, f"{job.media}: the worker failed ({type(exc).__name__}: {exc}); run again with --retry-failed")
                 if broken:
                     close(interrupted=True)
@@ -194,7 +194,7 @@ def _dask_executor(address: str) -> tuple[Executor, int, Callable[..., None]]:
     try:
         connect: Any = DaskClient  # the library is untyped
         client = connect(address, timeout=15, set_as_default=False)
-    except Exception as exc:  # noqa: BLE001  # Dask raises OSError, TimeoutError or ValueError depending on the address
+    except Exception as exc:  # Dask raises OSError, TimeoutError or ValueError depending on the address
         raise CaptionerError(address, f"no Dask scheduler answered ({exc})", "start one with `dask scheduler` or check the address (tcp://HOST:8786)") from exc
     threads = max(sum(client.nthreads().values()), 1)
     executor: Executor = client.get_executor(pure=False)

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import itertools
+
 from captioner.cues import build_cues, event_text, reading_ms, word
 from captioner.events import SoundEvent
 from captioner.style import Layout, Style, Wording, load_style, replace
@@ -73,7 +75,7 @@ def test_cues_never_overlap_and_never_start_far_before_their_sound() -> None:
     events = [event(str(i), 700 * i, 700 * i + 400, f"sound number {i} here", "x") for i in range(12)]
     cues, _ = cues_of(events)
     onsets = {e.event_id: e.start_ms for e in events}
-    for earlier, later in zip(cues, cues[1:]):
+    for earlier, later in itertools.pairwise(cues):
         assert earlier.end_ms <= later.start_ms
     for cue in cues:
         assert all(cue.start_ms >= onsets[i] - BRACKETS.layout.sync_tolerance_ms for i in cue.event_ids)
@@ -92,7 +94,7 @@ def test_gaps_between_cues_are_closed_or_at_least_a_second() -> None:
     # BBC §4.5: no gap, or a gap of at least 1 s (the capitals preset uses min_gap_ms 1000).
     events = [event("a", 0, 500), event("b", 1800, 2300, "cat meowing", "cat meows"), event("c", 6000, 6500, "bird singing", "bird sings")]
     cues, _ = cues_of(events, CAPITALS)
-    for earlier, later in zip(cues, cues[1:]):
+    for earlier, later in itertools.pairwise(cues):
         gap = later.start_ms - earlier.end_ms
         assert gap == 0 or gap >= 1000
 

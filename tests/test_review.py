@@ -22,12 +22,12 @@ from typing import Any
 import pytest
 import srt
 import webvtt
-from conftest import tone, write_wav
 
 from captioner import review, update
 from captioner.cli import main
 from captioner.cues import Cue
 from captioner.formats.subtitles import parse_subtitles
+from conftest import tone, write_wav
 
 HOSTILE = "<script>alert(1)</script> & -->"
 HOSTILE_VTT = "&lt;script&gt;alert(1)&lt;/script&gt; &amp; --&gt;"  # as a WebVTT file must hold it

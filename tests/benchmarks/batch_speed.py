@@ -34,7 +34,7 @@ import time
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from speed import make_input  # noqa: E402  (a sibling script, not a package)
+from speed import make_input
 
 
 def build_library(folder: Path, source: Path, count: int) -> Path:

@@ -30,7 +30,6 @@ from captioner.formats import WRITERS
 from captioner.scores import ScoreTrack
 from captioner.style import Style, load_style, replace
 
-
 # Each variant switches one rule off (or back to a plain alternative) through settings alone.
 ABLATIONS: list[tuple[str, str, dict[str, Any]]] = [
     ("evidence gate off (no energy check)", "selection", {"evidence_gate": False}),
