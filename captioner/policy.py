@@ -95,7 +95,7 @@ def select_events(events: list[SoundEvent], dialogue: tuple[Span, ...], settings
     if settings.generic_confidence > 0:
         alive = _unnamed_generics(alive, settings.generic_confidence, drop)
     if settings.cooldown_ms > 0:  # before the dialogue rule: a sound judged as a whole
-        alive = _repeats(alive, settings.cooldown_ms, drop)
+        alive = _repeats(alive, settings.cooldown_ms, settings.music_cooldown_ms, drop)
     if settings.dialogue_gate:
         alive = _dialogue(alive, dialogue, settings, drop, notes)
     kept = _cap_density(alive, settings, drop) if settings.max_cues_per_minute > 0 else alive
@@ -113,6 +113,10 @@ def _weak(events: list[SoundEvent], settings: Selection, drop: _Drop) -> list[So
             drop(event, "confidence", f"peak score {event.peak_score:.2f} < {settings.min_confidence}")
         elif event.duration_ms < settings.min_duration_ms:
             drop(event, "duration", f"{event.duration_ms} ms < {settings.min_duration_ms} ms")
+        elif event.kind is Kind.MUSIC and event.duration_ms < settings.music_min_ms:
+            # Music worth a caption lasts; a second of "music" is far more often a tonal
+            # sound (a chime, a knock on wood, a device's melody) than a score starting.
+            drop(event, "duration", f"music lasting {event.duration_ms} ms < {settings.music_min_ms} ms")
         elif salience(event, settings) < settings.min_salience:
             drop(event, "salience", f"salience {salience(event, settings):.2f} < {settings.min_salience}")
         elif settings.evidence_gate and event.level_db < settings.min_level_db:
@@ -276,11 +280,16 @@ def _into_gap(event: SoundEvent, dialogue: tuple[Span, ...], settings: Selection
     return replace(event, start_ms=event.start_ms + shift, end_ms=max(event.end_ms, event.start_ms + shift + 1))
 
 
-def _repeats(alive: list[SoundEvent], cooldown_ms: int, drop: _Drop) -> list[SoundEvent]:
-    """The same concept again within the cooldown extends the earlier event instead of a new cue."""
+def _repeats(alive: list[SoundEvent], cooldown_ms: int, music_cooldown_ms: int, drop: _Drop) -> list[SoundEvent]:
+    """The same concept again within the cooldown extends the earlier event instead of a new cue.
+
+    Music gets its own, longer cooldown: a score keeps playing while the classifier's music
+    score dips under dialogue, and music is captioned once at its onset, not re-announced.
+    """
     joined: list[SoundEvent] = []
     for event in sorted(alive, key=lambda e: e.start_ms):
-        index = next((i for i in range(len(joined) - 1, -1, -1) if joined[i].concept == event.concept and event.start_ms - joined[i].end_ms < cooldown_ms), None)
+        window = max(cooldown_ms, music_cooldown_ms) if event.kind is Kind.MUSIC else cooldown_ms
+        index = next((i for i in range(len(joined) - 1, -1, -1) if joined[i].concept == event.concept and event.start_ms - joined[i].end_ms < window), None)
         if index is None:
             joined.append(event)
             continue

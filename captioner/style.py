@@ -81,12 +81,14 @@ class Selection:
     generic_redundancy: bool = True  # "[beeping]" is left out beside a specific sound of the same moment
     generic_confidence: float = 0.8  # a generic sound no specific one names needs this peak score (alerts exempt; 0 = off)
     music_detail_confidence: float = 0.6  # mood/genre/singing wording only above this
+    music_min_ms: int = 3000  # shorter "music" is left out: usually a tonal sound, not a score (0 = off)
     dialogue_gate: bool = True
     dialogue_min_priority: int = 3  # under dialogue, lower priorities are dropped ...
     dialogue_confidence: float = 0.7  # ... and kept ones need this confidence
     gap_shift_ms: int = 1000  # a short event under dialogue may move this far into a gap (0 = off)
     short_event_ms: int = 2000  # only events shorter than this move
     cooldown_ms: int = 6000  # same concept again within this after it ended joins the earlier cue (0 = off)
+    music_cooldown_ms: int = 20000  # the same for music, whose score dips under dialogue while it plays on
     max_cues_per_minute: int = 12  # density cap, most salient kept (0 = no cap)
 
 
@@ -121,6 +123,8 @@ class Style:
 
 _SECTIONS = {"wording": Wording, "layout": Layout, "detection": Detection, "selection": Selection, "merge": Merge}
 _RANGES: dict[str, tuple[float, float]] = {
+    "music_min_ms": (0, 60000),
+    "music_cooldown_ms": (0, 120000),
     "max_chars_per_line": (10, 80),
     "max_lines": (1, 4),
     "min_duration_ms": (0, 20000),

@@ -11,7 +11,7 @@ from captioner.vocabulary import Kind
 
 # A permissive base so that each test exercises one rule only.
 OPEN = Selection(min_confidence=0.0, min_salience=0.0, evidence_gate=False, parent_redundancy=False, sibling_redundancy=False, generic_redundancy=False,
-                 generic_confidence=0.0, dialogue_gate=False, gap_shift_ms=0, cooldown_ms=0, max_cues_per_minute=0)
+                 generic_confidence=0.0, dialogue_gate=False, gap_shift_ms=0, cooldown_ms=0, max_cues_per_minute=0, music_min_ms=0)
 
 
 def event(event_id: str, concept: str, start_ms: int, end_ms: int, peak: float = 0.8, *, kind: Kind = Kind.TRANSIENT, priority: int = 3,
@@ -247,3 +247,23 @@ def test_a_gap_move_may_not_exceed_the_sync_tolerance() -> None:
     assert style_from_mapping({"layout": {"sync_tolerance_ms": 1500}, "selection": {"gap_shift_ms": 1500}}).selection.gap_shift_ms == 1500
     with pytest.raises(StyleError, match="gap_shift_ms=2000 exceeds layout.sync_tolerance_ms=1500"):
         style_from_mapping({"layout": {"sync_tolerance_ms": 1500}, "selection": {"gap_shift_ms": 2000}})
+
+
+def test_brief_music_is_left_out_as_a_likely_tonal_sound() -> None:
+    blip = event("a", "music", 0, 1100, 0.7, kind=Kind.MUSIC)
+    score = event("b", "music", 10000, 18000, 0.9, kind=Kind.MUSIC)
+    knock = event("c", "knock", 20000, 20600, 0.8, priority=4)  # short non-music sounds are unaffected
+    kept, rules = run([blip, score, knock], replace(OPEN, music_min_ms=3000))
+    assert kept == {"b", "c"} and rules["a"] == "duration"
+    assert run([blip, score, knock], OPEN)[0] == {"a", "b", "c"}
+
+
+def test_music_that_dips_under_dialogue_is_not_announced_again() -> None:
+    first = event("a", "music", 0, 10000, 0.9, kind=Kind.MUSIC)
+    again = event("b", "music", 18000, 40000, 0.9, kind=Kind.MUSIC)  # 8 s later: still the same score
+    rain = event("c", "rain", 0, 10000, 0.9, kind=Kind.CONTINUOUS)
+    rain_again = event("d", "rain", 18000, 30000, 0.9, kind=Kind.CONTINUOUS)  # other sounds keep the short cooldown
+    settings = replace(OPEN, cooldown_ms=6000, music_cooldown_ms=20000)
+    kept, rules = run([first, again, rain, rain_again], settings)
+    assert kept == {"a", "c", "d"} and rules["b"] == "repeat"
+    assert run([first, again, rain, rain_again], replace(settings, music_cooldown_ms=0))[0] == {"a", "b", "c", "d"}
