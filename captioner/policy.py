@@ -88,6 +88,8 @@ def select_events(events: list[SoundEvent], dialogue: tuple[Span, ...], settings
     alive = _weak(events, settings, drop)
     if settings.parent_redundancy:
         alive = _parents(alive, settings, drop, notes)
+    if settings.music_min_ms > 0:  # after _parents, so a brief mood or instrument still words a long score
+        alive = _brief_music(alive, settings.music_min_ms, drop)
     if settings.sibling_redundancy:
         alive = _siblings(alive, drop)
     if settings.generic_redundancy:
@@ -113,10 +115,6 @@ def _weak(events: list[SoundEvent], settings: Selection, drop: _Drop) -> list[So
             drop(event, "confidence", f"peak score {event.peak_score:.2f} < {settings.min_confidence}")
         elif event.duration_ms < settings.min_duration_ms:
             drop(event, "duration", f"{event.duration_ms} ms < {settings.min_duration_ms} ms")
-        elif event.kind is Kind.MUSIC and event.duration_ms < settings.music_min_ms:
-            # Music worth a caption lasts; a second of "music" is far more often a tonal
-            # sound (a chime, a knock on wood, a device's melody) than a score starting.
-            drop(event, "duration", f"music lasting {event.duration_ms} ms < {settings.music_min_ms} ms")
         elif salience(event, settings) < settings.min_salience:
             drop(event, "salience", f"salience {salience(event, settings):.2f} < {settings.min_salience}")
         elif settings.evidence_gate and event.level_db < settings.min_level_db:
@@ -126,6 +124,18 @@ def _weak(events: list[SoundEvent], settings: Selection, drop: _Drop) -> list[So
         else:
             alive.append(event)
     return alive
+
+
+def _brief_music(alive: list[SoundEvent], music_min_ms: int, drop: _Drop) -> list[SoundEvent]:
+    """Music worth a caption lasts: a second of "music" is far more often a tonal sound
+    (a chime, a knock on wood, a device's melody) than a score starting."""
+    kept = []
+    for event in alive:
+        if event.kind is Kind.MUSIC and event.duration_ms < music_min_ms:
+            drop(event, "duration", f"music lasting {event.duration_ms} ms < {music_min_ms} ms")
+        else:
+            kept.append(event)
+    return kept
 
 
 def _safety_exempt(event: SoundEvent, settings: Selection) -> bool:

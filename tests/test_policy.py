@@ -267,3 +267,11 @@ def test_music_that_dips_under_dialogue_is_not_announced_again() -> None:
     kept, rules = run([first, again, rain, rain_again], settings)
     assert kept == {"a", "c", "d"} and rules["b"] == "repeat"
     assert run([first, again, rain, rain_again], replace(settings, music_cooldown_ms=0))[0] == {"a", "b", "c", "d"}
+
+
+def test_a_brief_mood_still_words_a_long_score() -> None:
+    music = event("m", "music", 0, 30000, 0.9, kind=Kind.MUSIC, phrase="music")
+    piano = event("p", "keyboard", 2000, 3500, 0.8, kind=Kind.MUSIC, parent="music", phrase="piano music", label="Piano")
+    settings = replace(OPEN, parent_redundancy=True, music_detail_confidence=0.6, music_min_ms=3000)
+    selected = select_events([music, piano], (), settings)
+    assert [(e.event_id, e.phrase) for e in selected.kept] == [("m", "piano music")]
