@@ -15,6 +15,7 @@ _NEVER_CAPTIONED = (Kind.SPEECH, Kind.IGNORE)
 # The noise floor is a low percentile of the surrounding frame levels: the pauses between
 # words and sounds. The median would be the dialogue itself wherever people talk.
 FLOOR_PERCENTILE = 15
+_MIN_SURROUNDINGS_MS = 1000  # less than this around an event is no reference for its contrast
 LASTING = (Kind.CONTINUOUS, Kind.MUSIC, Kind.AMBIENCE)
 
 
@@ -217,8 +218,12 @@ def _levels(track: ScoreTrack, start_ms: int, end_ms: int) -> tuple[float, float
     inside = _frames(track, start_ms, end_ms)
     around = np.concatenate([_frames(track, start_ms - 5000, start_ms), _frames(track, end_ms, end_ms + 5000)])
     level = float(np.percentile(inside, 90)) if inside.size else -100.0
-    background = float(np.median(around)) if around.size else -100.0
-    floor = float(np.percentile(around, FLOOR_PERCENTILE)) if around.size else -100.0
+    if around.size * track.frame_ms < _MIN_SURROUNDINGS_MS:
+        # A sound that fills (nearly) the whole input has no surroundings to compare with;
+        # only the absolute level can then tell it from silence.
+        return level, -100.0, -100.0
+    background = float(np.median(around))
+    floor = float(np.percentile(around, FLOOR_PERCENTILE))
     return level, background, floor
 
 

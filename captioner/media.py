@@ -14,6 +14,7 @@ import shutil
 import subprocess
 import tempfile
 import threading
+import warnings
 from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
@@ -24,6 +25,7 @@ import numpy as np
 from .errors import MediaError
 
 _STREAM_LINE = re.compile(r"Stream #0:(\d+)[^:]*: Audio: (.*)")
+_FFMPEG_TAGS = re.compile(r"^(\[[^\]]*\]\s*)+")  # "[aac @ 0x5600...] " prefixes name ffmpeg's internals
 _DURATION = re.compile(r"Duration: (\d+):(\d\d):(\d\d(?:\.\d+)?)")
 
 
@@ -82,6 +84,8 @@ def probe(path: Path) -> MediaInfo:
         MediaError: the file is missing, unreadable or not media ffmpeg understands.
     """
     path = Path(path)
+    if path.is_dir():
+        raise MediaError(path, "is a folder, not a media file", "use `captioner batch FOLDER` to caption every file in it")
     if not path.is_file():
         raise MediaError(path, "file not found", "check the path")
     result = subprocess.run(
@@ -108,7 +112,7 @@ def probe(path: Path) -> MediaInfo:
 def _last_error_line(text: str, path: Path) -> str:
     lines = [line.strip() for line in text.splitlines() if line.strip()]
     useful = [line for line in lines if "output file" not in line.lower()]
-    line = useful[-1] if useful else ""
+    line = _FFMPEG_TAGS.sub("", useful[-1]) if useful else ""
     return line.replace(str(path) + ": ", "").replace(str(path), "the file")
 
 
@@ -118,14 +122,18 @@ def decode_chunks(
     *,
     sample_rate: int,
     chunk_seconds: float = 60.0,
+    expected_ms: int | None = None,
 ) -> Iterator[np.ndarray]:
     """Decode one audio stream to mono float32 at `sample_rate`, chunk by chunk.
 
     Yields arrays of shape (n,) with n == chunk_seconds * sample_rate except the last.
     Memory stays bounded: at most a few chunks are queued between ffmpeg and the caller.
+    `expected_ms` is the duration the container declares (from `probe`); with it a file
+    that ends early with decoder errors is reported as truncated. Decoder errors on a file
+    that still decodes to its full length only raise a warning.
 
     Raises:
-        MediaError: ffmpeg failed, or the stream decoded to no samples at all.
+        MediaError: ffmpeg failed, the file is truncated, or it decoded to no samples at all.
     """
     if sample_rate <= 0 or chunk_seconds <= 0:
         raise ValueError(f"sample_rate={sample_rate} and chunk_seconds={chunk_seconds} must be > 0")
@@ -162,13 +170,29 @@ def decode_chunks(
                 except queue.Empty:
                     pass
             process.wait()
-        if process.returncode != 0:
-            errors.seek(0)
-            message = errors.read().decode("utf-8", "replace")
-            reason = _last_error_line(message, path) or f"ffmpeg exit status {process.returncode}"
-            raise MediaError(path, f"audio could not be decoded ({reason})", "check that it plays; re-export it if it is damaged")
-        if total == 0:
-            raise MediaError(path, "the audio stream is empty (zero-length audio)", "check the file has sound")
+        errors.seek(0)
+        message = errors.read().decode("utf-8", "replace")
+    if process.returncode != 0:
+        reason = _last_error_line(message, path) or f"ffmpeg exit status {process.returncode}"
+        raise MediaError(path, f"audio could not be decoded ({reason})", "check that it plays; re-export it if it is damaged")
+    if total == 0:
+        raise MediaError(path, "the audio stream is empty (zero-length audio)", "check the file has sound")
+    if message.strip():
+        _check_damage(path, message, round(total * 1000 / sample_rate), expected_ms)
+
+
+def _check_damage(path: Path, message: str, decoded_ms: int, expected_ms: int | None) -> None:
+    """Decoder errors: fatal when the audio also stops well short of its declared length."""
+    # Container durations are estimates for some formats, so only a clear shortfall that
+    # comes with decoder errors counts as truncation.
+    if expected_ms and decoded_ms < 0.95 * expected_ms - 500:
+        raise MediaError(
+            path,
+            f"truncated or damaged: only {decoded_ms / 1000:.1f} s of its {expected_ms / 1000:.1f} s of audio decode ({_last_error_line(message, path)})",
+            "copy or export the file again",
+        )
+    count = sum(1 for line in message.splitlines() if line.strip())
+    warnings.warn(f"{path}: {count} decoder error(s), the audio has damaged stretches; captions near them may be wrong", stacklevel=2)
 
 
 def _pump(process: subprocess.Popen[bytes], chunk_bytes: int, chunks: queue.Queue[bytes | None]) -> None:

@@ -79,7 +79,7 @@ def caption_file(
     if on_start:
         on_start(info.duration_ms)
     rate = pack.manifest.frontend.sample_rate
-    chunks = media.decode_chunks(path, stream, sample_rate=rate)
+    chunks = media.decode_chunks(path, stream, sample_rate=rate, expected_ms=info.duration_ms)
     progress = (lambda samples: on_progress(round(samples * 1000 / rate))) if on_progress else None
     track = compute_scores(chunks, pack.classifier, pack.manifest.frontend, hop_ms=style.detection.patch_hop_ms, on_progress=progress)
     spans, events, decisions, cues = caption_track(track, pack.vocabulary, style, dialogue=dialogue)

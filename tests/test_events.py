@@ -162,3 +162,16 @@ def test_the_generic_flag_of_a_class_reaches_its_events() -> None:
     scores[20:22, HORN] = 0.8
     found = {e.concept: e.generic for e in detect_events(track_of(scores, energy), vocabulary, Detection(bridge_ms=0))}
     assert found == {"beep": True, "car_horn": False}
+
+
+def test_a_sound_filling_the_whole_input_has_no_background_to_compare_with() -> None:
+    scores, energy = make_track(n_patches=20, level_db=-15.0)
+    scores[:, PHONE] = 0.9  # rings from the first patch to the last
+    whole = events_of(track_of(scores, energy))
+    assert len(whole) == 1 and whole[0].floor_db == whole[0].background_db == -100.0  # unknown: only the level counts
+    scores[:, PHONE] = 0.0
+    scores[5:10, PHONE] = 0.9  # a ring with quiet surroundings keeps a measured floor
+    energy[:] = -50.0
+    energy[int(5 * HOP / FRAME) : int((9 * HOP + PATCH) / FRAME)] = -15.0
+    part = events_of(track_of(scores, energy))
+    assert len(part) == 1 and part[0].floor_db == pytest.approx(-50.0) and part[0].above_floor_db > 30

@@ -14,7 +14,7 @@ from conftest import run_ffmpeg, tone, write_wav
 
 def _decode(path: Path, index: int | None = None, chunk_seconds: float = 60.0) -> list[np.ndarray]:
     info = media.probe(path)
-    return list(media.decode_chunks(path, info.choose_stream(index), sample_rate=16000, chunk_seconds=chunk_seconds))
+    return list(media.decode_chunks(path, info.choose_stream(index), sample_rate=16000, chunk_seconds=chunk_seconds, expected_ms=info.duration_ms))
 
 
 def test_stereo_48k_is_downmixed_and_resampled(tmp_path: Path) -> None:
@@ -60,6 +60,8 @@ def test_video_without_audio_is_a_clear_error(tmp_path: Path) -> None:
 def test_missing_and_non_media_files(tmp_path: Path) -> None:
     with pytest.raises(MediaError, match="file not found"):
         media.probe(tmp_path / "nope.mp4")
+    with pytest.raises(MediaError, match="is a folder.*captioner batch"):
+        media.probe(tmp_path)
     text = tmp_path / "notes.mp4"
     text.write_text("this is not a video\n")
     with pytest.raises(MediaError, match="not a readable media file"):
@@ -76,6 +78,36 @@ def test_truncated_video_is_a_clear_error(tmp_path: Path) -> None:
         info = media.probe(broken)
         _decode(broken)
         assert info  # pragma: no cover
+
+
+def _streamable_video(tmp_path: Path, seconds: int = 10) -> Path:
+    """An MP4 with its index up front (+faststart), so a cut copy still opens."""
+    source = write_wav(tmp_path / "long.wav", tone(float(seconds)))
+    video = tmp_path / "whole.mp4"
+    run_ffmpeg("-f", "lavfi", "-i", f"color=c=black:s=64x64:d={seconds}", "-i", str(source), "-c:v", "mpeg4", "-c:a", "aac",
+               "-movflags", "+faststart", "-shortest", str(video))
+    return video
+
+
+def test_a_file_that_stops_early_is_reported_as_truncated(tmp_path: Path) -> None:
+    video = _streamable_video(tmp_path)
+    cut = tmp_path / "cut.mp4"
+    cut.write_bytes(video.read_bytes()[: video.stat().st_size // 2])
+    with pytest.raises(MediaError, match=r"truncated or damaged: only \d+\.\d s of its 10\.0 s") as caught:
+        _decode(cut)
+    assert "@ 0x" not in str(caught.value)  # ffmpeg's internal tags are not shown
+
+
+def test_damaged_stretches_warn_but_still_decode(tmp_path: Path) -> None:
+    video = _streamable_video(tmp_path)
+    data = bytearray(video.read_bytes())
+    middle = len(data) // 2
+    data[middle : middle + 3000] = bytes(3000)  # zero out part of the audio data
+    damaged = tmp_path / "damaged.mp4"
+    damaged.write_bytes(bytes(data))
+    with pytest.warns(UserWarning, match="decoder error"):
+        samples = np.concatenate(_decode(damaged))
+    assert samples.size >= 0.9 * 10 * 16000
 
 
 def test_zero_length_audio_is_a_clear_error(tmp_path: Path) -> None:
