@@ -217,9 +217,11 @@ class _Blocks:
 def _split_vtt(text: str) -> _Blocks:
     # The writer separates blocks by one blank line and never writes a blank line inside one.
     blocks = text.rstrip("\n").split("\n\n")
-    head = [b for b in blocks if "-->" not in b]
+    # WEBVTT, NOTE, STYLE and REGION blocks open with their keyword; every other block is a cue.
+    is_head = [b.split("\n", 1)[0].split(" ", 1)[0] in ("WEBVTT", "NOTE", "STYLE", "REGION") for b in blocks]
+    head = [b for b, h in zip(blocks, is_head) if h]
     parsed = parse_subtitles(text, "vtt").cues
-    cue_blocks = [b for b in blocks if "-->" in b]
+    cue_blocks = [b for b, h in zip(blocks, is_head) if not h]
     return _Blocks(head, [(cue.start_ms, block) for cue, block in zip(parsed, cue_blocks)])
 
 

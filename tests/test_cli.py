@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import csv
+import re
 import subprocess
 import sys
 from pathlib import Path
@@ -100,3 +101,16 @@ def test_demo_video_yields_its_sounds_on_time(tmp_path: Path, pack: object) -> N
         if any(pattern.search(text) and start <= offset + 1 and end >= onset - 1 for start, end, text in cues):
             found.add(event["concept"])
     assert {"dog", "telephone", "music", "smoke_alarm"} <= found, (found, cues)
+
+
+def test_an_arrow_in_the_file_name_cannot_break_the_track(tmp_path: Path, pack: object) -> None:
+    # W3C WebVTT: a NOTE block must not contain "-->"; a name like "a--->b" must not sneak one in.
+    quiet = np.zeros(16000 * 2)
+    audio = write_wav(tmp_path / "a--->b.wav", np.concatenate([quiet, tone(3.0, 1000.0), quiet, tone(3.0, 1000.0), quiet]))
+    out = tmp_path / "out.vtt"
+    assert main(["caption", str(audio), "-o", str(out), "--quiet"]) == 0
+    text = out.read_text()
+    timing = re.compile(r"^\d{2}:\d{2}:\d{2}\.\d{3} --> \d{2}:\d{2}:\d{2}\.\d{3}")
+    assert all(timing.match(line) for line in text.splitlines() if "-->" in line)
+    recorded = [line for line in text.splitlines() if line.startswith("cue e")]
+    assert len(webvtt.read(str(out)).captions) == len(recorded) >= 1

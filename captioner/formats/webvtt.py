@@ -31,10 +31,24 @@ def escape(text: str) -> str:
     return text.replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
 
 
+def note_text(text: str) -> str:
+    """Make text safe for a NOTE block: no blank lines, and no "-->" anywhere.
+
+    Replacing once is not enough ("--->" would become "-->" again), hence the loop.
+
+    >>> note_text("from a--->b.mp4\n\nsecond line")
+    'from a->b.mp4\nsecond line'
+    """
+    lines = [line for line in text.splitlines() if line.strip()]
+    safe = "\n".join(lines)
+    while "-->" in safe:
+        safe = safe.replace("-->", "->")
+    return safe
+
+
 def _note(text: str) -> str:
     # A NOTE block ends at a blank line and may not contain "-->".
-    lines = [line.replace("-->", "->") for line in text.splitlines() if line.strip()]
-    return "NOTE\n" + "\n".join(lines)
+    return "NOTE\n" + note_text(text)
 
 
 def cue_block(start_ms: int, end_ms: int, payload: str, *, identifier: str = "", settings: str = "") -> str:
