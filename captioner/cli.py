@@ -1,9 +1,11 @@
-"""Command line: parse arguments, call the pipeline, map errors to exit codes. No logic here."""
+"""Command line: parse arguments, check outputs before any work, call the pipeline, map errors
+to exit codes. Captioning logic lives in the stage modules."""
 
 from __future__ import annotations
 
 import argparse
 import json
+import os
 import sys
 import traceback
 import warnings
@@ -19,6 +21,7 @@ if TYPE_CHECKING:
     from .formats.subtitles import SubtitleTrack
 
 EXIT_OK, EXIT_SOME_FAILED, EXIT_BAD_INPUT = 0, 1, 2
+_DEFAULT_SIDECAR = Path("\0default")  # --events-json given without a path
 
 
 def _parser() -> argparse.ArgumentParser:
@@ -49,7 +52,7 @@ def _parser() -> argparse.ArgumentParser:
     caption.add_argument("--style", default="brackets", help="style preset name (see `captioner styles`) or a style .yaml file")
     caption.add_argument("--dialogue", type=Path, help="existing dialogue subtitles (.vtt/.srt): their times mark dialogue")
     caption.add_argument("--merge", action="store_true", help="write one track: the --dialogue cues unchanged plus the sound cues (default -o: INPUT.merged.vtt/.srt)")
-    caption.add_argument("--events-json", type=Path, help="also write every detected event, decision and score curve as JSON")
+    caption.add_argument("--events-json", type=Path, nargs="?", const=_DEFAULT_SIDECAR, help="also write every detected event, decision and score curve as JSON (default path: NAME.sounds.json beside INPUT)")
     caption.add_argument("--model", default=None, help="model pack name or manifest path (default: yamnet-int8)")
     caption.add_argument("--audio-stream", type=int, default=None, metavar="N", help="which audio stream to use, 0 = first (default: the default stream)")
     caption.add_argument("--explain", action="store_true", help="print a table of kept and dropped events with reasons (to stderr)")
@@ -90,7 +93,7 @@ def _parser() -> argparse.ArgumentParser:
             "examples:\n"
             "  captioner review demo.mp4 -o demo.review.html          # uses demo.sounds.vtt and demo.sounds.json beside it\n"
             "  captioner review talk.wav --captions talk.sounds.srt --events-json talk.json -o talk.html\n"
-            "  captioner caption demo.mp4 --update                    # after saving your edits as demo.vtt"
+            "  captioner caption demo.mp4 --update                    # after saving your edits as demo.sounds.vtt"
         ),
     )
     review.add_argument("input", type=Path, help="the video or audio file the captions belong to (the page links to it by relative path)")
@@ -147,7 +150,7 @@ def _parser() -> argparse.ArgumentParser:
         ),
     )
     evaluate.add_argument("truth", type=Path, metavar="TRUTH.csv", help="truth events: file,onset,offset,concept (seconds)")
-    evaluate.add_argument("captions", type=Path, metavar="CAPTIONS_DIR", help="folder with NAME.vtt or NAME.srt (and NAME.json sidecars) per annotated clip")
+    evaluate.add_argument("captions", type=Path, metavar="CAPTIONS_DIR", help="folder with NAME.vtt/.srt or NAME.sounds.vtt/.srt (and NAME.json or NAME.sounds.json sidecars) per annotated clip")
     evaluate.add_argument("--concepts", type=Path, metavar="CONCEPTS.yaml", help="concept -> caption keywords (default: concepts.yaml beside TRUTH.csv)")
     evaluate.add_argument("--collar", type=float, default=1.0, metavar="S", help="seconds added to both sides of each event when matching (default: 1.0)")
     evaluate.add_argument("--dialogue", type=Path, metavar="DIALOGUE.csv", help="speech spans file,onset,offset: count cues overlapping dialogue")
@@ -212,18 +215,20 @@ def _notices(quiet: bool) -> Callable[[str], None]:
 
 def _caption(args: argparse.Namespace) -> int:
     from . import packs, pipeline, update
-    from .formats import write_atomic
+    from .formats import merged_track_path, sound_track_path, write_atomic
     from .formats.merge import merge_table
     from .formats.subtitles import dialogue_spans, read_track
     from .report import explain_table, progress_bar
     from .style import load_style
 
     style = load_style(args.style)
+    if args.events_json == _DEFAULT_SIDECAR:
+        args.events_json = sound_track_path(args.input, "json")
     track = read_track(args.dialogue) if args.dialogue else None
     if args.merge and track is None:
         raise SubtitleError("--merge", "needs the dialogue track to merge into", "add --dialogue SUBS")
     if args.merge and track is not None:
-        fmt, output = _merged_target(args.output, args.format, track, args.dialogue, args.input.with_suffix(f".merged.{track.format}"))
+        fmt, output = _merged_target(args.output, args.format, track, args.dialogue, merged_track_path(args.input, track.format))
     else:
         fmt, output = _output_target(args)
     updating = args.update and update.updatable(output, merge=args.merge)
@@ -238,7 +243,7 @@ def _caption(args: argparse.Namespace) -> int:
             style,
             audio_stream=args.audio_stream,
             dialogue=dialogue,
-            dialogue_source=str(args.dialogue) if args.dialogue else "classifier",
+            dialogue_source=args.dialogue.name if args.dialogue else "classifier",
             on_start=bar.start,
             on_progress=bar.advance,
         )
@@ -304,13 +309,25 @@ def _merged_target(output: str | None, fmt: str | None, dialogue: SubtitleTrack,
 
 
 def _refuse_overwrite(outputs: tuple[Path | None, ...], inputs: tuple[Path | None, ...], *, force: bool) -> None:
-    """Check outputs before any work: never an input file, never an existing file without --force."""
+    """Check every output before any work, so a run never stops after writing half of them:
+    never an input file, never two outputs on one path, a writable folder, and no existing
+    file without --force."""
     sources = {p.resolve() for p in inputs if p is not None}
+    seen: set[Path] = set()
     for target in outputs:
         if target is None:
             continue
-        if target.resolve() in sources:
+        resolved = target.resolve()
+        if resolved in sources:
             raise OutputError(target, "is one of the input files, which are never modified", "choose another output path")
+        if resolved in seen:
+            raise OutputError(target, "is named for two outputs", "give each output its own path")
+        seen.add(resolved)
+        folder = resolved.parent
+        if not folder.is_dir():
+            raise OutputError(target, f"folder {folder} does not exist", "create it or choose another path")
+        if not os.access(folder, os.W_OK):
+            raise OutputError(target, f"folder {folder} is not writable", "choose a writable folder")
         if target.exists() and not force:
             raise OutputError(target, "already exists (it may hold hand edits)", "pass --force to replace it, or choose another path")
 
@@ -329,8 +346,6 @@ def _output_target(args: argparse.Namespace) -> tuple[str, Path | None]:
 
 
 def _batch(args: argparse.Namespace) -> int:
-    import os
-
     from . import library, packs
     from .manifest import summary_json, summary_table
     from .style import load_style
@@ -367,7 +382,7 @@ def _models(args: argparse.Namespace) -> int:
     cache = packs.cache_root()
     if args.action == "install":
         manifest = packs.read_manifest(args.model or packs.DEFAULT_PACK, cache)
-        if manifest.is_downloaded:
+        if manifest.is_downloaded and not (packs.is_installed(manifest) and packs.is_intact(manifest)):
             packs.install(manifest, wheel_dir=args.from_wheel_dir, say=_notices(False))
         packs.verify(manifest)
         print(f"{manifest.name}: ready in {manifest.root}")
@@ -380,8 +395,6 @@ def _models(args: argparse.Namespace) -> int:
 
 
 def _evaluate(args: argparse.Namespace) -> int:
-    import json
-
     from . import packs
     from .evaluation import evaluate_captions, quality_json, quality_table
     from .formats import write_atomic
@@ -406,10 +419,12 @@ def _evaluate(args: argparse.Namespace) -> int:
 
 
 def _review(args: argparse.Namespace) -> int:
-    from .formats import write_atomic
-    from .review import build_page
+    from .formats import sound_track_path, write_atomic
+    from .review import build_page, default_captions
 
-    _refuse_overwrite((args.output,), (args.input, args.captions, args.events_json), force=args.force)
+    # The default track and sidecar are inputs too, even when they were not named.
+    inputs = (args.input, args.captions or default_captions(args.input), args.events_json or sound_track_path(args.input, "json"))
+    _refuse_overwrite((args.output,), inputs, force=args.force)
     write_atomic(args.output, build_page(args.input, args.output, captions=args.captions, sidecar=args.events_json), force=args.force)
     print(f"captioner: review page written to {args.output}; open it in a browser (it needs {args.input.name} at the same relative path)", file=sys.stderr)
     return EXIT_OK

@@ -139,22 +139,33 @@ def _resolve(drafts: list[Cue], layout: Layout) -> tuple[tuple[Cue, ...], tuple[
 
 
 def unique_ids(cues: list[Cue]) -> list[Cue]:
-    """Every cue's first id (its WebVTT cue identifier) different from all earlier ones.
-
-    W3C WebVTT requires cue identifiers to be unique within a file. A repeated first id
-    gets a suffix: e0001, e0001-2, e0001-3.
-    """
+    """Every cue's first id (its WebVTT cue identifier) different from all earlier ones."""
     taken: set[str] = set()
     result = []
     for cue in cues:
         first = cue.event_ids[0] if cue.event_ids else ""
-        name, number = first, 1
-        while first and name in taken:
-            number += 1
-            name = f"{first}-{number}"
-        taken.add(name)
+        name = unique_identifier(first, taken) if first else first
         result.append(replace(cue, event_ids=(name, *cue.event_ids[1:])) if name != first else cue)
     return result
+
+
+def unique_identifier(identifier: str, taken: set[str]) -> str:
+    """`identifier`, or with the first free suffix -2, -3, ... when `taken` holds it; the
+    name returned is added to `taken`.
+
+    W3C WebVTT requires cue identifiers to be unique within a file; every writer of
+    identifiers goes through here, so one file never mixes suffix schemes.
+
+    >>> taken = {"e0001"}
+    >>> unique_identifier("e0001", taken), unique_identifier("e0001", taken), unique_identifier("e0002", taken)
+    ('e0001-2', 'e0001-3', 'e0002')
+    """
+    name, number = identifier, 1
+    while name in taken:
+        number += 1
+        name = f"{identifier}-{number}"
+    taken.add(name)
+    return name
 
 
 def _apply_gaps(cues: list[Cue], layout: Layout) -> list[Cue]:

@@ -2,8 +2,9 @@
 
 Definitions (all times in integer milliseconds):
 
-- A cue *names* a concept when its text contains one of the concept's keywords as a whole
-  word, ignoring case and markup tags.
+- A cue *names* a concept when the text a viewer reads (`subtitles.plain_lines`: markup
+  removed, WebVTT character references decoded) contains one of the concept's keywords as a
+  whole word, ignoring case.
 - A cue *matches* a truth event when it names the event's concept and its span overlaps the
   event widened by the collar on both sides (touching ends do not overlap).
 - precision = matched cues / cues; recall = detected events (matched by at least one cue) /
@@ -26,7 +27,7 @@ from dataclasses import asdict, dataclass
 from pathlib import Path
 from typing import Any
 
-from .events import Span
+from .events import Span, overlaps
 from .formats.annotations import (
     AnnotationError,
     TruthEvent,
@@ -39,10 +40,9 @@ from .formats.annotations import (
     read_truth,
     sidecar_durations,
 )
-from .formats.subtitles import SubtitleCue
+from .formats.subtitles import SubtitleCue, SubtitleFormat, plain_lines
 
 DEFAULT_COLLAR_MS = 1000
-_TAG = re.compile(r"<[^>]*>")  # WebVTT markup such as <i> or <c.sound>
 
 
 @dataclass(frozen=True, slots=True)
@@ -89,8 +89,6 @@ def keyword_pattern(keywords: Sequence[str]) -> re.Pattern[str]:
     return re.compile(r"(?<!\w)(?:" + "|".join(alternatives) + r")(?!\w)", re.IGNORECASE)
 
 
-def _overlaps(start_a: int, end_a: int, start_b: int, end_b: int) -> bool:
-    return start_a < end_b and end_a > start_b
 
 
 def _ratio(numerator: float, denominator: float) -> float:
@@ -123,11 +121,13 @@ def caption_quality(
     collar_ms: int = DEFAULT_COLLAR_MS,
     durations_ms: Mapping[str, int] | None = None,
     dialogue: Mapping[str, Sequence[Span]] | None = None,
+    formats: Mapping[str, SubtitleFormat] | None = None,
 ) -> QualityReport:
     """Score the cues of every annotated file against its truth events.
 
     `cues` holds one entry per annotated file (an empty tuple for an empty caption track);
-    `keywords` maps every concept to its caption keywords. Files with no events count as
+    `formats` says how each file's cue text is written (default "vtt": WebVTT markup and
+    character references); `keywords` maps every concept to its caption keywords. Files with no events count as
     truth-free audio when `durations_ms` knows their length (a warning names those it doesn't).
     """
     if collar_ms < 0:
@@ -154,13 +154,14 @@ def caption_quality(
         elif not file_events:
             unknown_length.append(name)
         speech = dialogue.get(name, ()) if dialogue is not None else ()
+        fmt = formats.get(name, "vtt") if formats else "vtt"
         for cue in file_cues:
-            text = _TAG.sub(" ", cue.text)
+            text = "\n".join(plain_lines(cue.text, fmt))
             named = [c for c, pattern in patterns.items() if pattern.search(text)]
-            over = any(_overlaps(cue.start_ms, cue.end_ms, s.start_ms, s.end_ms) for s in speech)
+            over = any(overlaps(cue.start_ms, cue.end_ms, s.start_ms, s.end_ms) for s in speech)
             cue_matched = False
             for concept in named:
-                hits = [i for i, e in file_events if e.concept == concept and _overlaps(cue.start_ms, cue.end_ms, e.start_ms - collar_ms, e.end_ms + collar_ms)]
+                hits = [i for i, e in file_events if e.concept == concept and overlaps(cue.start_ms, cue.end_ms, e.start_ms - collar_ms, e.end_ms + collar_ms)]
                 for index in hits:
                     earliest[index] = min(earliest.get(index, cue.start_ms), cue.start_ms)
                 counts[concept]["cues"] += 1
@@ -211,8 +212,10 @@ def evaluate_captions(
     """Read the annotations and the caption folder, then score them with `caption_quality`.
 
     The annotated clips are those named in the truth, durations or dialogue file; each needs a
-    caption file NAME.vtt or NAME.srt in `captions_dir`. Durations come from the durations file,
-    else from JSON sidecars (NAME.json or NAME.events.json) beside the captions.
+    caption file in `captions_dir`: NAME.vtt or NAME.srt, else NAME.sounds.vtt or NAME.sounds.srt
+    as `captioner caption` and `captioner batch` name them. Durations come from the durations
+    file, else from JSON sidecars (NAME.json, NAME.events.json or NAME.sounds.json) beside the
+    captions.
 
     Raises:
         AnnotationError, SubtitleError: a missing or malformed input file.
@@ -227,9 +230,11 @@ def evaluate_captions(
     if not durations_path:
         with_events = {e.file for e in events}
         durations = sidecar_durations(captions_dir, [n for n in names if n not in with_events])
-    cues = read_caption_files(captions_dir, names)
+    tracks = read_caption_files(captions_dir, names)
+    cues = {name: track.cues for name, track in tracks.items()}
+    formats = {name: track.format for name, track in tracks.items()}
     keywords = {concept: spec.keywords for concept, spec in concepts.items()}
-    return caption_quality(events, cues, keywords, collar_ms=collar_ms, durations_ms=durations, dialogue=dialogue)
+    return caption_quality(events, cues, keywords, collar_ms=collar_ms, durations_ms=durations, dialogue=dialogue, formats=formats)
 
 
 # ---------------------------------------------------------------- output

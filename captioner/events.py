@@ -64,6 +64,15 @@ class Span:
     end_ms: int
 
 
+def overlaps(start_a: int, end_a: int, start_b: int, end_b: int) -> bool:
+    """Whether two spans in ms share time; spans that only touch do not.
+
+    >>> overlaps(0, 1000, 999, 2000), overlaps(0, 1000, 1000, 2000)
+    (True, False)
+    """
+    return start_a < end_b and start_b < end_a
+
+
 def median_patches(median_ms: int, hop_ms: int) -> int:
     """Odd median-filter length in patches for a length in ms (1 = no smoothing).
 

@@ -120,7 +120,6 @@ class PatchStream:
         self._samples = np.zeros(0, dtype=np.float32)
         self._frames = np.zeros((0, frontend.n_mels), dtype=np.float32)
         self.patches_emitted = 0
-        self.frames_seen = 0
 
     def push(self, chunk: np.ndarray) -> PatchBlock:
         """Add samples; return the patches (and frame energies) that are now complete."""
@@ -128,7 +127,6 @@ class PatchStream:
         frames, energy = analyse(buffer, self.frontend, self._filterbank)
         consumed = frames.shape[0] * self.frontend.hop_length
         self._samples = buffer[consumed:]
-        self.frames_seen += frames.shape[0]
         self._frames = np.concatenate([self._frames, frames])
         return PatchBlock(self._take_patches(), energy)
 

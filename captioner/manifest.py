@@ -178,10 +178,6 @@ class RunManifest:
         """Every row, by relative path."""
         return {row["path"]: _record(row) for row in self.db.execute("SELECT * FROM files")}
 
-    def get(self, relative: str) -> FileRecord | None:
-        row = self.db.execute("SELECT * FROM files WHERE path = ?", (relative,)).fetchone()
-        return None if row is None else _record(row)
-
     def save(self, record: FileRecord) -> None:
         """Insert or replace one row in its own committed transaction."""
         fp, st = record.fingerprint, record.settings

@@ -89,7 +89,7 @@ def probe(path: Path) -> MediaInfo:
     if not path.is_file():
         raise MediaError(path, "file not found", "check the path")
     result = subprocess.run(
-        [ffmpeg_executable(), "-hide_banner", "-nostdin", "-i", str(path)],
+        [ffmpeg_executable(), "-hide_banner", "-nostdin", "-i", _input_url(path)],
         capture_output=True,
         text=True,
         errors="replace",
@@ -109,11 +109,18 @@ def probe(path: Path) -> MediaInfo:
     return MediaInfo(path, duration_ms, tuple(streams))
 
 
+def _input_url(path: Path) -> str:
+    """The path as ffmpeg's file protocol, so a name like "12:30 news.mp4" is not a protocol."""
+    return "file:" + str(Path(path).absolute())
+
+
 def _last_error_line(text: str, path: Path) -> str:
     lines = [line.strip() for line in text.splitlines() if line.strip()]
     useful = [line for line in lines if "output file" not in line.lower()]
     line = _FFMPEG_TAGS.sub("", useful[-1]) if useful else ""
-    return line.replace(str(path) + ": ", "").replace(str(path), "the file")
+    for name in (_input_url(path), str(Path(path).absolute()), str(path)):
+        line = line.replace(name + ": ", "").replace(name, "the file")
+    return line
 
 
 def decode_chunks(
@@ -141,7 +148,7 @@ def decode_chunks(
         # The input-side -vn/-sn/-dn keep the demuxer from handing over other streams, and
         # whole-second frames make ffmpeg write the pipe in large blocks: both save CPU that
         # the classifier needs on a 2-core machine.
-        ffmpeg.input(str(path), vn=None, sn=None, dn=None)[f"a:{stream.index}"]
+        ffmpeg.input(_input_url(path), vn=None, sn=None, dn=None)[f"a:{stream.index}"]
         .filter("aformat", sample_fmts="flt", channel_layouts="mono")
         .filter("aresample", sample_rate)
         .filter("asetnsamples", n=sample_rate, p=0)

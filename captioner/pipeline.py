@@ -11,6 +11,7 @@ from typing import TYPE_CHECKING
 from . import media
 from .cues import Cue, build_cues
 from .dialogue import speech_spans
+from .errors import StyleError
 from .events import SoundEvent, Span, detect_events
 from .packs import LoadedPack
 from .policy import Decision, select_events
@@ -55,6 +56,22 @@ def caption_track(
     return spans, tuple(events), decisions, cues
 
 
+def check_style_fits_pack(style: Style, pack: LoadedPack) -> None:
+    """The patch hop must be a whole number of the pack's frames (10 ms for YAMNet).
+
+    Raises:
+        StyleError: it is not.
+    """
+    frame_ms = pack.manifest.frontend.frame_ms
+    frames = style.detection.patch_hop_ms / frame_ms
+    if abs(frames - round(frames)) > 1e-6 or round(frames) < 1:
+        raise StyleError(
+            style.name,
+            f"detection.patch_hop_ms={style.detection.patch_hop_ms} is not a whole number of the model pack's {frame_ms:g} ms frames",
+            f"use a multiple of {frame_ms:g} ms",
+        )
+
+
 def caption_file(
     path: Path,
     pack: LoadedPack,
@@ -74,6 +91,7 @@ def caption_file(
     Raises:
         MediaError: the file cannot be probed or decoded.
     """
+    check_style_fits_pack(style, pack)
     info = media.probe(path)
     stream = info.choose_stream(audio_stream)
     if on_start:
@@ -103,15 +121,13 @@ class Drafts:
 
     def events_json(self) -> str:
         """The JSON sidecar: every event, decision and score curve, plus the merge outcome."""
-        import json
-
         from .formats import sidecar
         from .formats.merge import outcomes_json
 
         document = sidecar.sidecar(self.result, self.vocabulary)
         if self.merged is not None:
             document["merge"] = {"dialogue": self.dialogue_name, "strategy": self.result.style.merge.strategy, "sound_cues": outcomes_json(self.merged)}
-        return json.dumps(document, indent=1, ensure_ascii=False) + "\n"
+        return sidecar.dumps(document)
 
 
 def draft_outputs(result: Captioned, vocabulary: Vocabulary, fmt: str, *, merge_with: SubtitleTrack | None = None, dialogue_name: str = "") -> Drafts:

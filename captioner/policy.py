@@ -7,11 +7,12 @@ Rules run in a fixed order; the first rule that drops an event names the decisio
     parent     -- a confident, more specific concept covers it (vehicle under car horn),
                   or it is an unsure child that its surer parent already names
     music      -- a mood/genre/singing detail that is not confident enough to word the music
+    duration   -- music shorter than music_min_ms (checked after the music wording is given)
     sibling    -- another refinement of the same parent scored higher on the same sound
     generic    -- a sourceless description ("beeping") beside a specific sound of that moment,
                   or alone and not sure enough to be worth a caption
-    dialogue   -- it sits under dialogue and is too unimportant or too unsure for that
     repeat     -- the same concept again within the cooldown: joined to the earlier event
+    dialogue   -- it sits under dialogue and is too unimportant or too unsure for that
     density    -- more cues per minute than the style allows; the least salient go
 
 Each rule has a setting in `Selection` that switches it off.

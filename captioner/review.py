@@ -22,10 +22,10 @@ from typing import Any, Literal
 from urllib.parse import quote
 
 from .cues import word
-from .errors import CaptionerError, MediaError, SubtitleError
+from .errors import MediaError, SubtitleError
 from .formats import sound_track_path
 from .formats.subtitles import SubtitleTrack, plain_lines, read_track
-from .style import Wording, load_style
+from .style import Wording
 from .update import note_blocks
 
 MediaKind = Literal["audio", "video"]
@@ -92,7 +92,6 @@ def page_data(inputs: ReviewInputs, page: Path) -> dict[str, Any]:
     """Everything the page script needs, as JSON-ready values (times in integer ms)."""
     sidecar = inputs.sidecar or {}
     events = sidecar.get("events", [])
-    wording = _wording(sidecar.get("style"))
     track = inputs.captions
     folder = Path(page).resolve().parent
     relative = Path(os.path.relpath(inputs.media.resolve(), folder)).as_posix()
@@ -122,7 +121,7 @@ def page_data(inputs: ReviewInputs, page: Path) -> dict[str, Any]:
         "dropped": [
             {
                 "id": e["id"],
-                "text": word(e["text"], wording, music=e.get("kind") == "music"),
+                "text": _caption(e),
                 "start_ms": e["start_ms"],
                 "end_ms": e["end_ms"],
                 "rule": e.get("rule", ""),
@@ -135,12 +134,16 @@ def page_data(inputs: ReviewInputs, page: Path) -> dict[str, Any]:
     }
 
 
-def _wording(style_name: object) -> Wording:
-    # A promoted candidate is worded like the run's own cues; an unknown style gets the default.
-    try:
-        return load_style(str(style_name)).wording if style_name else Wording()
-    except CaptionerError:
-        return Wording()
+def _caption(event: Mapping[str, Any]) -> str:
+    """A dropped event's caption as the run's style worded it (the sidecar's `caption`).
+
+    Sidecars written before that field existed hold only the phrase: it gets the default
+    wording, as the style they name may be a file that is no longer at hand.
+    """
+    caption = event.get("caption")
+    if isinstance(caption, str) and caption:
+        return caption
+    return word(str(event.get("text", "")), Wording(), music=event.get("kind") == "music")
 
 
 def _curves(sidecar: Mapping[str, Any], concepts: set[str]) -> dict[str, Any]:

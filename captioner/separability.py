@@ -228,7 +228,8 @@ def evaluate_scores(
     durations_path: Path | None = None,
     dialogue_path: Path | None = None,
 ) -> SeparabilityReport:
-    """Read annotations and every annotated clip's sidecar (NAME.json or NAME.events.json), then score.
+    """Read annotations and every annotated clip's sidecar (NAME.json, NAME.events.json or
+    NAME.sounds.json), then score.
 
     `cache` is the model-pack cache, used to find the vocabulary of the pack the sidecars name.
 

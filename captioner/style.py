@@ -245,8 +245,6 @@ def _check_consistency(source: str, style: Style) -> None:
         raise StyleError(source, f"layout.min_duration_ms={layout.min_duration_ms} exceeds max_duration_ms={layout.max_duration_ms}", "make the minimum smaller")
     if selection.gap_shift_ms > layout.sync_tolerance_ms:  # a moved sound cue would lag its sound beyond the tolerance
         raise StyleError(source, f"selection.gap_shift_ms={selection.gap_shift_ms} exceeds layout.sync_tolerance_ms={layout.sync_tolerance_ms}", "make the gap move at most the sync tolerance")
-    if d.patch_hop_ms % 10:
-        raise StyleError(source, f"detection.patch_hop_ms={d.patch_hop_ms} is not a multiple of 10", "use a multiple of the 10 ms frame hop")
 
 
 def replace(style: Style, section: str, **changes: Any) -> Style:

@@ -1,8 +1,9 @@
 """Safe re-runs: keep a person's edits when a cue file is captioned again with --update.
 
-Every WebVTT file the tool writes carries one record block, a WebVTT comment that lists
-each machine-written cue by identifier, time and fingerprint (SHA-256 of its timing and
-text exactly as written)::
+Every WebVTT sound-caption track the tool writes carries one record block (a merged
+track, dialogue plus sound cues, carries none), a WebVTT comment that lists each
+machine-written cue by identifier, time and fingerprint (SHA-256 of its timing and text
+exactly as written)::
 
     NOTE captioner record 1
     cue e0006 00:00:06.870 00:00:09.120 sha256:5be1f0a2c3d4e5f6
@@ -29,10 +30,11 @@ from dataclasses import dataclass
 from enum import Enum
 from pathlib import Path
 
-from .cues import Cue
-from .errors import OutputError
+from .cues import Cue, unique_identifier
+from .errors import OutputError, SubtitleError
+from .events import overlaps
 from .formats import webvtt
-from .formats.subtitles import SubtitleCue, SubtitleTrack, parse_subtitles, read_track
+from .formats.subtitles import SubtitleCue, SubtitleTrack, decode_text, parse_subtitles
 
 RECORD_HEADING = "NOTE captioner record 1"
 _RECORD_LINE = re.compile(r"^(cue|gone) (\S+) (\d+:\d\d:\d\d\.\d{3}) (\d+:\d\d:\d\d\.\d{3})(?: sha256:([0-9a-f]+))?$")
@@ -126,9 +128,9 @@ def record_block(entries: Sequence[RecordEntry]) -> str:
 def recorded_vtt(cues: Sequence[Cue], note: str) -> str:
     """A fresh WebVTT file for machine cues, with its record block after the note.
 
-    Identifiers are made unique (a split cue can share its event's id), as the record needs.
+    The record needs each identifier once: a repeated one gets a suffix (`unique_identifier`).
     """
-    return _assemble(_split_vtt(webvtt.dumps(_unique_ids(cues, set()), note)), [], ())
+    return _document(cues, set(), [], (), [], note)
 
 
 def classify(track: SubtitleTrack, record: Sequence[RecordEntry]) -> dict[str, Origin]:
@@ -154,19 +156,22 @@ def classify(track: SubtitleTrack, record: Sequence[RecordEntry]) -> dict[str, O
     return origins
 
 
-def update_vtt(existing: Path, cues: Sequence[Cue], note: str) -> tuple[str, Summary]:
+def update_vtt(existing: Path, cues: Sequence[Cue], note: str, *, text: str | None = None) -> tuple[str, Summary]:
     """The text that replaces `existing` after a new run produced `cues`.
+
+    `text` is the file's content when the caller has read it already; otherwise the file is
+    read here, once.
 
     Raises:
         SubtitleError: the existing file is not valid WebVTT.
-        OutputError: it is not WebVTT or has no record block, so edits cannot be told apart.
+        OutputError: it is missing, not WebVTT, or has no record block, so edits cannot be told apart.
     """
     existing = Path(existing)
-    if not updatable(existing, merge=False):
+    if text is None:
+        text = existing_text(existing)
+    if text is None:
         raise OutputError(existing, "not found", "run without --update to write it")
-    track = read_track(existing)
-    record = read_record(existing.read_text(encoding="utf-8-sig", errors="replace")) or ()
-    return reconcile(track, record, cues, note)
+    return reconcile(parse_subtitles(text, "vtt", name=str(existing)), _required_record(existing, text), cues, note)
 
 
 def reconcile(track: SubtitleTrack, record: Sequence[RecordEntry], cues: Sequence[Cue], note: str) -> tuple[str, Summary]:
@@ -192,10 +197,9 @@ def reconcile(track: SubtitleTrack, record: Sequence[RecordEntry], cues: Sequenc
             entries.append(RecordEntry(identifier, entry.start_ms, entry.end_ms, "", gone=True))
     protected += [(e.start_ms, e.end_ms) for e in entries if e.gone]
 
-    fresh = [c for c in cues if not any(_overlaps(c.start_ms, c.end_ms, s, e) for s, e in protected)]
+    fresh = [c for c in cues if not any(overlaps(c.start_ms, c.end_ms, s, e) for s, e in protected)]
     taken = {c.identifier for c in kept} | {e.identifier for e in entries}
-    blocks = _split_vtt(webvtt.dumps(_unique_ids(fresh, taken), note))
-    text = _assemble(blocks, kept, track.header_blocks, entries)
+    text = _document(fresh, taken, kept, track.header_blocks, entries, note)
     counts = list(origins.values())
     summary = Summary(
         kept_edited=counts.count(Origin.EDITED),
@@ -208,57 +212,27 @@ def reconcile(track: SubtitleTrack, record: Sequence[RecordEntry], cues: Sequenc
     return text, summary
 
 
-@dataclass(frozen=True, slots=True)
-class _Blocks:
-    head: list[str]  # "WEBVTT" and the note block
-    cues: list[tuple[int, str]]  # (start_ms, block text)
+def _document(
+    fresh: Sequence[Cue], taken: set[str], kept: Sequence[SubtitleCue], header_blocks: Sequence[str], carried: Sequence[RecordEntry], note: str
+) -> str:
+    """Header, note, record, STYLE/REGION blocks, then all cues in time order.
 
-
-def _split_vtt(text: str) -> _Blocks:
-    # The writer separates blocks by one blank line and never writes a blank line inside one.
-    blocks = text.rstrip("\n").split("\n\n")
-    # WEBVTT, NOTE, STYLE and REGION blocks open with their keyword; every other block is a cue.
-    is_head = [b.split("\n", 1)[0].split(" ", 1)[0] in ("WEBVTT", "NOTE", "STYLE", "REGION") for b in blocks]
-    head = [b for b, h in zip(blocks, is_head) if h]
-    parsed = parse_subtitles(text, "vtt").cues
-    cue_blocks = [b for b, h in zip(blocks, is_head) if not h]
-    return _Blocks(head, [(cue.start_ms, block) for cue, block in zip(parsed, cue_blocks)])
-
-
-def _assemble(machine: _Blocks, kept: Sequence[SubtitleCue], header_blocks: Sequence[str], carried: Sequence[RecordEntry] = ()) -> str:
-    """Header, note, record, STYLE/REGION blocks, then all cues in time order."""
-    machine_text = "\n\n".join([*machine.head, *(b for _, b in machine.cues)]) + "\n"
-    written = parse_subtitles(machine_text, "vtt").cues  # fingerprint what a reader will see
-    entries = list(carried) + [RecordEntry(c.identifier, c.start_ms, c.end_ms, fingerprint(c.start_ms, c.end_ms, c.text)) for c in written]
+    Each new machine cue gets an identifier no kept cue or record entry holds (`taken`
+    grows as they are given out); its record entry fingerprints the cue text exactly as
+    written, which is what a reader of the file gets back.
+    """
+    entries = list(carried)
+    timed: list[tuple[int, str]] = []
+    for cue in fresh:
+        identifier = unique_identifier(cue.event_ids[0] if cue.event_ids else "cue", taken)
+        payload = webvtt.cue_payload(cue.lines)
+        timed.append((cue.start_ms, webvtt.cue_block(cue.start_ms, cue.end_ms, payload, identifier=identifier)))
+        entries.append(RecordEntry(identifier, cue.start_ms, cue.end_ms, fingerprint(cue.start_ms, cue.end_ms, payload)))
     entries.sort(key=lambda e: (e.start_ms, e.identifier))
-    person = [(c.start_ms, _cue_block(c)) for c in kept]
-    ordered = sorted(machine.cues + person, key=lambda pair: pair[0])  # stable: ties keep machine first
-    return "\n\n".join([*machine.head, record_block(entries), *header_blocks, *(b for _, b in ordered)]) + "\n"
-
-
-def _cue_block(cue: SubtitleCue) -> str:
-    timing = f"{webvtt.timestamp(cue.start_ms)} --> {webvtt.timestamp(cue.end_ms)}"
-    if cue.settings.strip():
-        timing += " " + cue.settings.strip()
-    return "\n".join(part for part in (cue.identifier, timing, cue.text) if part)
-
-
-def _unique_ids(cues: Sequence[Cue], taken: set[str]) -> list[Cue]:
-    """Give a new machine cue a fresh identifier when a kept cue or a deletion holds its own."""
-    result = []
-    for cue in cues:
-        first = cue.event_ids[0] if cue.event_ids else "cue"
-        name, number = first, 1
-        while name in taken:
-            number += 1
-            name = f"{first}.{number}"
-        taken.add(name)
-        result.append(Cue(cue.start_ms, cue.end_ms, cue.lines, (name, *cue.event_ids[1:])) if name != first else cue)
-    return result
-
-
-def _overlaps(start_a: int, end_a: int, start_b: int, end_b: int) -> bool:
-    return start_a < end_b and start_b < end_a
+    # A person's cue is written back exactly as read: text, identifier and settings.
+    timed += [(c.start_ms, webvtt.cue_block(c.start_ms, c.end_ms, c.text, identifier=c.identifier, settings=c.settings.strip())) for c in kept]
+    timed.sort(key=lambda pair: pair[0])  # stable: on equal starts machine cues come first
+    return webvtt.document([block for _, block in timed], note=note, header_blocks=(record_block(entries), *header_blocks))
 
 
 def _ms(stamp: str) -> int:
@@ -274,16 +248,41 @@ def updatable(output: Path | None, *, merge: bool) -> bool:
 
     Raises:
         OutputError: standard output, a merged track, an SRT file, or a file without a record.
+        SubtitleError: the file cannot be read.
     """
     if output is None:
         raise OutputError("-o -", "--update needs a caption file to update, not standard output", "name the file with -o")
     if merge:
         raise OutputError(output, "--update does not work on merged tracks", "update the sound-cue track, then merge it again")
+    return existing_text(output) is not None
+
+
+def existing_text(output: Path) -> str | None:
+    """The decoded text of a track to update, checked to be WebVTT with a record block;
+    None when there is no such file yet.
+
+    Decoded like every subtitle file the tool reads (`subtitles.decode_text`).
+
+    Raises:
+        OutputError: not a .vtt file, or no record block.
+        SubtitleError: the file cannot be read.
+    """
+    output = Path(output)
     if not output.exists():
-        return False
+        return None
     if output.suffix.lower() != ".vtt":
         raise OutputError(output, "--update needs the record block that only WebVTT files can hold", "caption to a .vtt file, or pass --force to replace it")
-    text = output.read_text(encoding="utf-8-sig", errors="replace")
-    if read_record(text) is None:
-        raise OutputError(output, f"has no '{RECORD_HEADING}' block, so hand edits cannot be told from machine cues", "restore that block, or pass --force to replace the file")
-    return True
+    try:
+        raw = output.read_bytes()
+    except OSError as exc:
+        raise SubtitleError(output, f"cannot read ({exc.strerror})", "check its permissions") from exc
+    text = decode_text(output, raw)
+    _required_record(output, text)
+    return text
+
+
+def _required_record(path: Path, text: str) -> tuple[RecordEntry, ...]:
+    record = read_record(text)
+    if record is None:
+        raise OutputError(path, f"has no '{RECORD_HEADING}' block, so hand edits cannot be told from machine cues", "restore that block, or pass --force to replace the file")
+    return record

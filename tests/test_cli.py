@@ -114,3 +114,27 @@ def test_an_arrow_in_the_file_name_cannot_break_the_track(tmp_path: Path, pack: 
     assert all(timing.match(line) for line in text.splitlines() if "-->" in line)
     recorded = [line for line in text.splitlines() if line.startswith("cue e")]
     assert len(webvtt.read(str(out)).captions) == len(recorded) >= 1
+
+
+def test_a_patch_hop_that_does_not_fit_the_pack_is_refused_before_decoding(tmp_path: Path, capsys: pytest.CaptureFixture[str], pack: object) -> None:
+    style = tmp_path / "odd.yaml"
+    style.write_text("detection:\n  patch_hop_ms: 485\n")
+    audio = write_wav(tmp_path / "a.wav", tone(1.0))
+    assert main(["caption", str(audio), "--style", str(style), "--quiet"]) == 2
+    assert "detection.patch_hop_ms=485 is not a whole number of the model pack's 10 ms frames" in _error_line(capsys)
+    assert not (tmp_path / "a.sounds.vtt").exists()
+
+
+def test_output_problems_are_found_before_any_output_is_written(tmp_path: Path, capsys: pytest.CaptureFixture[str], pack: object) -> None:
+    audio = write_wav(tmp_path / "a.wav", tone(1.0))
+    out = tmp_path / "a.vtt"
+    assert main(["caption", str(audio), "-o", str(out), "--events-json", str(tmp_path / "nodir" / "a.json"), "--quiet"]) == 2
+    assert "does not exist" in _error_line(capsys) and not out.exists()
+    assert main(["caption", str(audio), "-o", str(out), "--events-json", str(out), "--quiet"]) == 2
+    assert "is named for two outputs" in _error_line(capsys) and not out.exists()
+
+
+def test_events_json_without_a_path_goes_beside_the_input(tmp_path: Path, pack: object) -> None:
+    audio = write_wav(tmp_path / "a.wav", np.concatenate([np.zeros(32000), tone(2.0), np.zeros(32000)]))
+    assert main(["caption", str(audio), "--events-json", "--quiet"]) == 0
+    assert (tmp_path / "a.sounds.vtt").is_file() and '"events"' in (tmp_path / "a.sounds.json").read_text()

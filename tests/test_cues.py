@@ -139,3 +139,20 @@ def test_a_repeated_first_id_gets_a_numbered_suffix() -> None:
 
     cues = [Cue(0, 1000, ("[x]",), ("e1",)), Cue(1000, 2000, ("[y]",), ("e1", "e2")), Cue(2000, 3000, ("[z]",), ("e1",))]
     assert [c.event_ids for c in unique_ids(cues)] == [("e1",), ("e1-2", "e2"), ("e1-3",)]
+
+
+def test_every_writer_of_identifiers_uses_the_same_suffixes() -> None:
+    # W3C WebVTT §4.1 (from memory): cue identifiers are unique within a file.
+    import io
+
+    import webvtt
+
+    from captioner.cues import Cue, unique_identifier
+    from captioner.update import recorded_vtt
+
+    taken = {"e1"}
+    assert [unique_identifier("e1", taken), unique_identifier("e1", taken), unique_identifier("e2", taken)] == ["e1-2", "e1-3", "e2"]
+    assert taken == {"e1", "e1-2", "e1-3", "e2"}
+    split = [Cue(0, 1000, ("[x]",), ("e1",)), Cue(1000, 2000, ("[x]",), ("e1",))]
+    recorded = [c.identifier for c in webvtt.from_buffer(io.StringIO(recorded_vtt(split, "")))]
+    assert recorded == ["e1", "e1-2"]

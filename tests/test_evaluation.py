@@ -26,7 +26,7 @@ from captioner.cli import main
 from captioner.evaluation import QualityReport, caption_quality, keyword_pattern
 from captioner.events import Span
 from captioner.formats.annotations import AnnotationError, ConceptSpec, SidecarScores, TruthEvent, read_truth
-from captioner.formats.subtitles import SubtitleCue
+from captioner.formats.subtitles import SubtitleCue, SubtitleFormat
 from captioner.separability import (
     average_precision,
     d_prime,
@@ -114,6 +114,21 @@ def test_keywords_are_whole_words_any_case_and_ignore_markup() -> None:
     assert not pattern.search("[doorbell rings]") and not pattern.search("[alarm]") and not pattern.search("[outdoor]")
     event = [TruthEvent("a", 1000, 2000, "alarm_clock")]
     assert quality(event, {"a": [cue(1000, 2000, "<c.sound>[alarm clock beeping]</c>")]}).overall.f1 == 1.0
+
+
+def test_keywords_match_the_text_a_viewer_reads() -> None:
+    keywords = {"pans": ("pots & pans",), "door": ("door",)}
+    events = [TruthEvent("a", 1000, 2000, "pans")]
+
+    def named(text: str, fmt: SubtitleFormat = "vtt") -> float:
+        return caption_quality(events, {"a": [cue(1000, 2000, text)]}, keywords, formats={"a": fmt}).overall.f1
+
+    # W3C WebVTT: "&amp;" in cue text is an escaped "&"; SRT has no escapes and {\an8} is a
+    # position code of the SRT trade (common practice), not text a viewer reads
+    assert named("<i>[pots &amp; pans clattering]</i>") == 1.0 and named("{\\an8}[pots & pans clattering]", "srt") == 1.0
+    # tags join what they split: a viewer reads "doorbell", which does not name "door"
+    doorbell = caption_quality([TruthEvent("a", 1000, 2000, "door")], {"a": [cue(1000, 2000, "[door<c.x>bell</c> rings]")]}, keywords)
+    assert doorbell.overall.matched_cues == 0 and doorbell.unnamed_cues == 1
 
 
 def test_false_alarms_per_minute_of_truth_free_files() -> None:
@@ -376,6 +391,23 @@ def test_missing_and_unparsable_caption_files(annotated: Path, capsys: pytest.Ca
     assert main(["evaluate", truth, str(captions)]) == 2
     error = capsys.readouterr().err.strip()
     assert len(error.splitlines()) == 1 and "clip1.vtt: no caption file" in error
+
+
+def test_default_output_names_are_found_plain_names_first(annotated: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    # `captioner caption` and `captioner batch` write NAME.sounds.vtt/.srt and NAME.sounds.json
+    truth, captions = str(annotated / "truth.csv"), annotated / "captions"
+    (captions / "clip1.vtt").rename(captions / "clip1.sounds.vtt")
+    (captions / "quiet.vtt").unlink()
+    _write(captions / "quiet.sounds.srt", "1\n00:00:01,000 --> 00:00:02,000\n[dog barking]\n")
+    _write(captions / "quiet.sounds.json", json.dumps({"version": 1, "duration_ms": 30000}))
+    speech = str(_write(annotated / "dialogue.csv", "file,onset,offset\nquiet,20.0,21.0\n"))  # names quiet as annotated
+    assert main(["evaluate", truth, str(captions), "--dialogue", speech, "--json", "-"]) == 0
+    data = json.loads(capsys.readouterr().out)
+    # the same 3 cues as the plain names give; quiet's length (0.5 min) comes from its sidecar
+    assert data["overall"]["cues"] == 3 and data["truth_free_ms"] == 30000 and data["overall"]["false_alarms_per_minute"] == 2.0
+    _write(captions / "clip1.vtt", "WEBVTT\n")  # an empty track under the plain name wins
+    assert main(["evaluate", truth, str(captions), "--dialogue", speech, "--json", "-"]) == 0
+    assert json.loads(capsys.readouterr().out)["overall"]["cues"] == 1
 
 
 def test_no_concept_file_beside_truth(annotated: Path, capsys: pytest.CaptureFixture[str]) -> None:

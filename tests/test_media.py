@@ -30,6 +30,11 @@ def test_stereo_48k_is_downmixed_and_resampled(tmp_path: Path) -> None:
     assert np.argmax(spectrum) * 16000 / samples.size == pytest.approx(440, abs=1)
 
 
+def test_a_colon_in_the_name_is_not_taken_for_a_protocol(tmp_path: Path) -> None:
+    path = write_wav(tmp_path / "take1:final.wav", tone(1.0))
+    assert np.concatenate(_decode(path)).size == 16000
+
+
 def test_chunks_are_bounded(tmp_path: Path) -> None:
     path = write_wav(tmp_path / "long.wav", tone(5.0))
     chunks = _decode(path, chunk_seconds=1.0)

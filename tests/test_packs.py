@@ -75,3 +75,31 @@ def test_wheel_with_wrong_hash_is_refused(tmp_path: Path) -> None:
 def test_unknown_pack_name(tmp_path: Path) -> None:
     with pytest.raises(PackError, match="no such model pack"):
         packs.read_manifest("no-such-pack", tmp_path)
+
+
+@pytest.mark.parametrize(
+    ("manifest", "onnx_bytes", "message"),
+    [
+        ("files: [m.onnx]\n", b"", "files must map each file name"),
+        ("", None, "model file not found"),
+        ("", b"this is not a protobuf graph", "not a readable ONNX model"),
+        ("source: {wheel: x.whl}\n", b"", "source must be a mapping with"),
+    ],
+)
+def test_a_broken_user_pack_is_one_clear_error(tmp_path: Path, manifest: str, onnx_bytes: bytes | None, message: str) -> None:
+    path = tmp_path / "mine.pack.yaml"
+    path.write_text("name: mine\nmodel: m.onnx\nlabels: labels.csv\nvocabulary: vocab.yaml\n" + manifest)
+    (tmp_path / "labels.csv").write_text("index,mid,display_name\n0,/m/x,Bark\n")
+    (tmp_path / "vocab.yaml").write_text("dog: {kind: transient, priority: 3, classes: {Bark: [dog barking, dog barks]}}\n")
+    if onnx_bytes is not None:
+        (tmp_path / "m.onnx").write_bytes(onnx_bytes)
+    with pytest.raises(PackError, match=message):
+        packs.load_pack(str(path), cache=tmp_path / "cache", say=lambda m: None)
+
+
+def test_models_install_keeps_an_intact_pack_without_downloading(pack: packs.LoadedPack, monkeypatch: pytest.MonkeyPatch, capsys: pytest.CaptureFixture[str]) -> None:
+    from captioner.cli import main
+
+    monkeypatch.setenv("PIP_NO_INDEX", "1")  # offline: a download would fail
+    assert main(["models", "install"]) == 0
+    assert "ready in" in capsys.readouterr().out

@@ -94,6 +94,48 @@ def test_page_data_holds_cues_dropped_candidates_and_curves(review_files: dict[s
     assert any(n.startswith(update.RECORD_HEADING) for n in data["captions"]["notes"])
 
 
+def _capitals_run(tmp_path: Path) -> tuple[dict[str, Any], Any]:
+    """A real sidecar of a `capitals` run in which "dog barking" was dropped."""
+    import numpy as np
+
+    from captioner.events import SoundEvent
+    from captioner.formats.sidecar import sidecar
+    from captioner.pipeline import Captioned
+    from captioner.policy import Decision
+    from captioner.scores import ScoreTrack
+    from captioner.style import load_style
+    from captioner.vocabulary import ClassEntry, Kind, Vocabulary
+
+    vocabulary = Vocabulary((
+        ClassEntry(0, "Dog", "dog", "dog barking", "dog barks", Kind.TRANSIENT, 3, None),
+        ClassEntry(1, "Speech", "speech", "speech", "speech", Kind.SPEECH, 1, None),
+        ClassEntry(2, "Silence", "silence", "silence", "silence", Kind.IGNORE, 1, None),
+    ))
+    scores = np.array([[0.9, 0.8, 0.7], [0.1, 0.8, 0.7]], dtype=np.float32)
+    track = ScoreTrack(scores, 480, 960, np.zeros(100), 10.0, 1440)
+    dog = SoundEvent("e0001", "dog", "Dog", "dog barking", "dog barks", Kind.TRANSIENT, 3, None, 0, 960, 0.9, 0.5, -20.0, -40.0)
+    run = Captioned(tmp_path / "clip.wav", load_style("capitals"), "test", track, (), "classifier", (dog,), (Decision("e0001", False, "dialogue", "under speech"),), ())
+    return sidecar(run, vocabulary), track
+
+
+def test_a_dropped_candidate_is_offered_as_the_runs_style_worded_it(tmp_path: Path) -> None:
+    document, _ = _capitals_run(tmp_path)
+    media = write_wav(tmp_path / "clip.wav", tone(1.5))
+    captions = tmp_path / "clip.sounds.vtt"
+    captions.write_text("WEBVTT\n")
+    inputs = review.ReviewInputs(media, parse_subtitles("WEBVTT\n", "vtt"), captions, json.loads(json.dumps(document)))
+    # BBC Subtitle Guidelines §17.2-17.4 (the capitals style): capitals, no brackets, present tense
+    assert [d["text"] for d in review.page_data(inputs, tmp_path / "page.html")["dropped"]] == ["DOG BARKS"]
+    assert document["events"][0]["text"] == "dog barking"  # the phrase stays, for older readers
+
+
+def test_sidecar_curves_cover_the_concepts_that_can_become_captions(tmp_path: Path) -> None:
+    document, track = _capitals_run(tmp_path)
+    curves = document["scores"]
+    assert curves["concepts"] == {"dog": [0.9, 0.1]}  # speech is told by the dialogue spans; ignored classes never caption
+    assert (curves["hop_ms"], curves["patch_ms"]) == (track.hop_ms, track.patch_ms)
+
+
 def test_page_is_self_contained_and_its_policy_allows_exactly_its_script(review_files: dict[str, Path]) -> None:
     html = review_files["page"].read_text()
     assert HOSTILE not in html and TRAP not in html and "</script> &" not in html

@@ -130,7 +130,30 @@ def test_new_cue_gets_a_fresh_identifier_when_its_own_is_held() -> None:
     moved_event = (_cue(30_000, 31_000, "[door slams]", "e0001"),)  # same id, elsewhere in time
     result, _ = _rerun(text, moved_event)
     identifiers = [c.identifier for c in _reference(result)]
-    assert identifiers == ["e0001", "e0001.2"]
+    assert identifiers == ["e0001", "e0001-2"]
+
+
+def test_update_vtt_reconciles_the_text_it_is_given(tmp_path: Path) -> None:
+    path = tmp_path / "track.vtt"
+    original = update.recorded_vtt(MACHINE, "")
+    path.write_text(original)
+    edited = _edit(original, "[dog barking]", "[small dog yapping]")
+    result, summary = update.update_vtt(path, MACHINE, "", text=edited)  # the caller's copy, not the file's
+    assert "[small dog yapping]" in result and summary.kept_edited == 1
+    assert update.update_vtt(path, MACHINE, "")[1].kept_edited == 0  # read from the file when not given
+
+
+def test_a_track_saved_in_a_legacy_code_page_is_read_with_one_decoder(tmp_path: Path) -> None:
+    cafe = (_cue(1000, 2000, "[café door]", "café1"),)
+    path = tmp_path / "track.vtt"
+    text = _edit(update.recorded_vtt(cafe, ""), "[café door]\n", "[café door creaks]\n")
+    path.write_bytes(text.encode("cp1252"))  # an editor that saved it as Windows-1252
+    with pytest.warns(UserWarning, match="cp1252"):
+        result, summary = update.update_vtt(path, cafe, "")
+    # cue identifier and record decoded alike, so the edited cue is known by its identifier
+    # (not taken for a hand-added cue plus a deletion)
+    assert (summary.kept_edited, summary.kept_added, summary.deleted) == (1, 0, 0)
+    assert "café1\n00:00:01.000 --> 00:00:02.000\n[café door creaks]" in result and "cue café1 " in result
 
 
 def test_cues_whose_identifiers_an_editor_dropped_are_matched_by_content() -> None:
@@ -204,4 +227,4 @@ def test_identifiers_are_unique_even_when_two_cues_share_an_event() -> None:
     # W3C WebVTT: a cue identifier must be unique among the cues of a file (from memory of §4.1)
     split = (_cue(1000, 1200, "[doorbell ringing]", "e0001"), _cue(1200, 2000, "[doorbell ringing]", "e0001"))
     identifiers = [c.identifier for c in _reference(update.recorded_vtt(split, ""))]
-    assert identifiers == ["e0001", "e0001.2"]
+    assert identifiers == ["e0001", "e0001-2"]

@@ -13,6 +13,16 @@ from ..errors import OutputError
 from . import srt, webvtt
 
 Format = Literal["vtt", "srt"]
+
+
+def _read_umask() -> int:
+    # Read once at import: os.umask can only be read by setting it, which is not thread-safe.
+    current = os.umask(0)
+    os.umask(current)
+    return current
+
+
+_UMASK = _read_umask()
 WRITERS: dict[str, Callable[[Sequence[Cue], str], str]] = {"vtt": webvtt.dumps, "srt": srt.dumps}
 
 
@@ -28,6 +38,11 @@ def sound_track_path(media: Path, suffix: str) -> Path:
     return Path(media).with_name(f"{Path(media).stem}.sounds.{suffix}")
 
 
+def merged_track_path(media: Path, suffix: str) -> Path:
+    """Default merged track beside a media file: NAME.merged.vtt / .srt."""
+    return Path(media).with_name(f"{Path(media).stem}.merged.{suffix}")
+
+
 def write_atomic(path: Path, text: str, *, force: bool = False) -> None:
     """Write text as UTF-8 via a temporary file and a rename, so a crash never leaves half a file.
 
@@ -39,22 +54,16 @@ def write_atomic(path: Path, text: str, *, force: bool = False) -> None:
         raise OutputError(path, "already exists (it may hold hand edits)", "pass --force to replace it, or choose another -o")
     folder = path.parent if str(path.parent) else Path(".")
     if not folder.is_dir():
-        raise OutputError(path, f"folder {folder} does not exist", "create it or choose another -o")
+        raise OutputError(path, f"folder {folder} does not exist", "create it or choose another path")
     try:
         handle, temporary = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=folder)
     except OSError as exc:
-        raise OutputError(path, f"cannot write in {folder} ({exc.strerror})", "choose a writable folder with -o") from exc
+        raise OutputError(path, f"cannot write in {folder} ({exc.strerror})", "choose a writable folder") from exc
     try:
         with os.fdopen(handle, "w", encoding="utf-8", newline="\n") as stream:
             stream.write(text)
-        os.chmod(temporary, 0o666 & ~_umask())  # mkstemp makes it private; use the usual mode
+        os.chmod(temporary, 0o666 & ~_UMASK)  # mkstemp makes it private; use the usual mode
         os.replace(temporary, path)
     except OSError as exc:
         Path(temporary).unlink(missing_ok=True)
         raise OutputError(path, f"cannot write ({exc.strerror})", "check free space and permissions") from exc
-
-
-def _umask() -> int:
-    current = os.umask(0)
-    os.umask(current)
-    return current

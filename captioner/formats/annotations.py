@@ -20,9 +20,13 @@ import yaml
 
 from ..errors import CaptionerError, SubtitleError
 from ..events import Span
-from .subtitles import SubtitleCue, read_subtitles
+from .subtitles import SubtitleTrack, read_track
 
 CONCEPTS_BESIDE_TRUTH = "concepts.yaml"
+# Files of an annotated clip NAME, tried in order: the plain name first, then the names
+# `captioner caption` and `captioner batch` write by default (NAME.sounds.*).
+CAPTION_SUFFIXES = (".vtt", ".srt", ".sounds.vtt", ".sounds.srt")
+SIDECAR_SUFFIXES = (".json", ".events.json", ".sounds.json")
 
 
 class AnnotationError(CaptionerError):
@@ -197,26 +201,27 @@ def _find_beside(folder: Path, name: str, suffixes: Sequence[str]) -> Path | Non
 
 
 def find_caption_file(folder: Path, name: str) -> Path | None:
-    """The caption file of an annotated clip: NAME.vtt or NAME.srt (NAME without a media extension too)."""
-    return _find_beside(folder, name, (".vtt", ".srt"))
+    """The caption file of an annotated clip: NAME.vtt, NAME.srt, NAME.sounds.vtt or
+    NAME.sounds.srt, the first that exists (NAME without a media extension too)."""
+    return _find_beside(folder, name, CAPTION_SUFFIXES)
 
 
-def read_caption_files(folder: Path, names: Sequence[str]) -> dict[str, tuple[SubtitleCue, ...]]:
-    """The cues of every annotated clip, read from the caption folder.
+def read_caption_files(folder: Path, names: Sequence[str]) -> dict[str, SubtitleTrack]:
+    """The caption track of every annotated clip, read from the caption folder.
 
     Raises:
         SubtitleError: the folder or a clip's caption file is missing, or a file does not parse.
     """
     folder = Path(folder)
     if not folder.is_dir():
-        raise SubtitleError(folder, "caption folder not found", "give the folder holding NAME.vtt or NAME.srt per annotated clip")
-    cues = {}
+        raise SubtitleError(folder, "caption folder not found", "give the folder holding NAME.vtt or NAME.srt (or NAME.sounds.vtt/.srt) per annotated clip")
+    tracks = {}
     for name in names:
         path = find_caption_file(folder, name)
         if path is None:
-            raise SubtitleError(folder / f"{name}.vtt", "no caption file for this annotated clip (.vtt or .srt)", "caption the clip into this folder, or remove it from the annotation files")
-        cues[name] = read_subtitles(path)
-    return cues
+            raise SubtitleError(folder / f"{name}.vtt", "no caption file for this annotated clip (.vtt, .srt, .sounds.vtt or .sounds.srt)", "caption the clip into this folder, or remove it from the annotation files")
+        tracks[name] = read_track(path)
+    return tracks
 
 
 def concepts_path_for(truth_path: Path, concepts_path: Path | None) -> Path:
@@ -234,8 +239,9 @@ def concepts_path_for(truth_path: Path, concepts_path: Path | None) -> Path:
 
 
 def find_sidecar(folder: Path, name: str) -> Path | None:
-    """The JSON sidecar of an annotated clip in the caption folder: NAME.json or NAME.events.json."""
-    return _find_beside(folder, name, (".json", ".events.json"))
+    """The JSON sidecar of an annotated clip in the caption folder: NAME.json, NAME.events.json
+    or NAME.sounds.json, the first that exists."""
+    return _find_beside(folder, name, SIDECAR_SUFFIXES)
 
 
 def read_json(path: Path) -> dict[str, Any]:
@@ -297,7 +303,7 @@ class SidecarScores:
 
     curves: vocabulary concept id -> (n_patches,) float64 in [0, 1]; patch i covers
     [i * hop_ms, i * hop_ms + patch_ms). A concept absent here never reached the
-    sidecar's floor (0.1) and scores about 0 throughout.
+    sidecar's floor (0.02) and scores about 0 throughout.
     """
 
     pack: str

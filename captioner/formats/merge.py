@@ -19,7 +19,7 @@ from typing import Any, Literal
 
 from webvtt.models import CueSettings
 
-from ..cues import Cue, reading_ms, wrap
+from ..cues import Cue, reading_ms, unique_identifier, wrap
 from ..policy import Decision
 from ..style import Layout, Style
 from . import srt as srt_writer
@@ -107,7 +107,7 @@ def dumps_merged(track: MergedTrack, note: str = "") -> str:
         if cue.dialogue is not None:
             blocks.append(vtt_writer.cue_block(cue.start_ms, cue.end_ms, _payload(cue, "vtt"), identifier=cue.dialogue.identifier, settings=cue.dialogue.settings))
             continue
-        identifier = _unique(f"sound-{cue.event_ids[0]}" if cue.event_ids else "sound", used)
+        identifier = unique_identifier(f"sound-{cue.event_ids[0]}" if cue.event_ids else "sound", used)
         settings = _EDGE_SETTING[cue.edge] if cue.edge else ""
         blocks.append(vtt_writer.cue_block(cue.start_ms, cue.end_ms, _payload(cue, "vtt"), identifier=identifier, settings=settings))
     return vtt_writer.document(blocks, note=note, header_blocks=track.header_blocks)
@@ -150,15 +150,6 @@ def _payload(cue: MergedCue, fmt: SubtitleFormat) -> str:
     sound = [vtt_writer.escape(line) if fmt == "vtt" else line for line in cue.sound_lines]
     own = [cue.dialogue.text] if cue.dialogue is not None and cue.dialogue.text else []
     return "\n".join(own + sound)
-
-
-def _unique(identifier: str, used: set[str]) -> str:
-    candidate, number = identifier, 1
-    while candidate in used:
-        number += 1
-        candidate = f"{identifier}-{number}"
-    used.add(candidate)
-    return candidate
 
 
 def _edge(settings: str) -> Edge:

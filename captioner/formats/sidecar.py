@@ -3,20 +3,27 @@
 from __future__ import annotations
 
 import json
+from collections.abc import Mapping
 from typing import Any
 
-import numpy as np
-
+from ..cues import event_text
+from ..events import concept_curves
 from ..pipeline import Captioned
-from ..vocabulary import Kind, Vocabulary
+from ..vocabulary import Vocabulary
 
 SIDECAR_VERSION = 1
 _CURVE_FLOOR = 0.02  # concepts that never reach this score are left out to keep files small
 
 
 def sidecar(result: Captioned, vocabulary: Vocabulary) -> dict[str, Any]:
-    """A JSON-ready description of one run."""
+    """A JSON-ready description of one run.
+
+    Each event carries `text`, its vocabulary phrase ("dog barking"), and `caption`, the
+    caption the run's style words it as ("DOG BARKS" in capitals), so a reader can show a
+    dropped event as the style would have written it without knowing the style.
+    """
     decisions = {d.event_id: d for d in result.decisions}
+    wording = result.style.wording
     return {
         "version": SIDECAR_VERSION,
         "source": result.source.name,
@@ -30,6 +37,7 @@ def sidecar(result: Captioned, vocabulary: Vocabulary) -> dict[str, Any]:
                 "concept": e.concept,
                 "class": e.label,
                 "text": e.phrase,
+                "caption": event_text(e, wording),
                 "kind": e.kind.value,
                 "priority": e.priority,
                 "start_ms": e.start_ms,
@@ -50,16 +58,17 @@ def sidecar(result: Captioned, vocabulary: Vocabulary) -> dict[str, Any]:
 
 
 def _curves(result: Captioned, vocabulary: Vocabulary) -> dict[str, Any]:
+    """Per-patch score of every concept that can become a caption (speech and ignored
+    classes cannot; dialogue is described by the `dialogue` spans instead)."""
     track = result.track
-    curves = {}
-    for concept, entries in vocabulary.concepts().items():
-        if entries[0].kind is Kind.IGNORE:
-            continue
-        curve = track.scores[:, [e.index for e in entries]].max(axis=1) if track.n_patches else np.zeros(0)
-        if curve.size and curve.max() >= _CURVE_FLOOR:
-            curves[concept] = [round(float(v), 3) for v in curve]
+    curves = {
+        concept: [round(float(v), 3) for v in curve]
+        for concept, (curve, _) in concept_curves(track, vocabulary).items()
+        if curve.size and curve.max() >= _CURVE_FLOOR
+    }
     return {"hop_ms": track.hop_ms, "patch_ms": track.patch_ms, "concepts": curves}
 
 
-def dumps(result: Captioned, vocabulary: Vocabulary) -> str:
-    return json.dumps(sidecar(result, vocabulary), indent=1, ensure_ascii=False) + "\n"
+def dumps(document: Mapping[str, Any]) -> str:
+    """A sidecar document (from `sidecar`, possibly with more sections) as the file's text."""
+    return json.dumps(document, indent=1, ensure_ascii=False) + "\n"

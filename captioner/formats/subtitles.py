@@ -2,7 +2,8 @@
 
 Cue text keeps its inline tags, entities and line breaks as written; WebVTT cue settings
 and identifiers are kept too, and STYLE/REGION blocks are kept so a merged track can carry
-them. A malformed file raises one SubtitleError naming the file and the line.
+them. A malformed file raises one SubtitleError naming the file and the line; a cue of
+zero length is kept (WebVTT parsers accept it) but counts as no dialogue time.
 """
 
 from __future__ import annotations
@@ -13,7 +14,7 @@ import io
 import re
 import warnings
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field, replace
 from datetime import timedelta
 from pathlib import Path
 from typing import Literal
@@ -29,6 +30,10 @@ SubtitleFormat = Literal["vtt", "srt"]
 _FIX = "fix that line or export the file again"
 _VTT_ERRORS = (MalformedFileError, MalformedCaptionError, ValueError)  # what webvtt-py raises for bad input
 _TAG = re.compile(r"<[^>]*>|\{\\[^}]*\}")  # WebVTT/SRT inline tags and SRT {\an8}-style codes
+# An SRT timing line as the srt library accepts it: three fields and an optional fraction
+# each side, separated by any of , . : (or their full-width forms), then the arrow.
+_SRT_STAMP = r"\d+[,.:，．。：]\d+[,.:，．。：]\d+[,.:，．。：]\d*"
+_SRT_TIMING = re.compile(rf"^\s*{_SRT_STAMP} *-[ -] *> *{_SRT_STAMP}")
 
 
 @dataclass(frozen=True, slots=True)
@@ -40,6 +45,8 @@ class SubtitleCue:
     text: str
     identifier: str = ""
     settings: str = ""
+    # where the cue's timing line is, as "FILE, line N", for messages; not part of equality
+    location: str = field(default="", compare=False, repr=False)
 
 
 @dataclass(frozen=True, slots=True)
@@ -118,18 +125,21 @@ def read_subtitles(path: Path) -> tuple[SubtitleCue, ...]:
 
 
 def parse_subtitles(text: str, fmt: SubtitleFormat, *, name: str = "subtitles") -> SubtitleTrack:
-    """Parse decoded subtitle text; `name` is used in error messages.
+    """Parse decoded subtitle text; `name` is used in messages and in each cue's `location`.
+
+    A zero-length cue is kept here (so a merge passes it through); `dialogue_spans` skips it.
 
     Raises:
-        SubtitleError: malformed content, naming `name` and the line.
+        SubtitleError: malformed content or a cue that ends before it starts, naming `name`
+            and the line.
     """
     text = text.lstrip("\ufeff")
     cues, header = (_parse_vtt(name, text) if fmt == "vtt" else (_parse_srt(name, text), ()))
-    arrows = _arrow_lines(text)
-    for number, cue in enumerate(cues):
-        if cue.end_ms <= cue.start_ms:
-            line = arrows[number] if number < len(arrows) else 0
-            raise SubtitleError(_where(name, line), "cue ends before or when it starts", _FIX)
+    lines = _vtt_timing_lines(text) if fmt == "vtt" else _srt_timing_lines(text, cues)
+    cues = [replace(cue, location=_where(name, lines[n] if n < len(lines) else 0)) for n, cue in enumerate(cues)]
+    for cue in cues:
+        if cue.end_ms < cue.start_ms:
+            raise SubtitleError(cue.location, "cue ends before or when it starts", _FIX)
     ordered = sorted(cues, key=lambda c: (c.start_ms, c.end_ms))  # stable: equal times keep file order
     return SubtitleTrack(name, fmt, tuple(ordered), header)
 
@@ -137,11 +147,21 @@ def parse_subtitles(text: str, fmt: SubtitleFormat, *, name: str = "subtitles") 
 def dialogue_spans(cues: Sequence[SubtitleCue]) -> tuple[Span, ...]:
     """The time covered by subtitle cues, overlapping or touching cues joined into one span.
 
+    A cue without duration covers no dialogue time: it is left out with a warning naming
+    its file and line (the cue itself stays in the track).
+
     >>> dialogue_spans([SubtitleCue(0, 1000, "a"), SubtitleCue(500, 2000, "b"), SubtitleCue(3000, 4000, "c")])
     (Span(start_ms=0, end_ms=2000), Span(start_ms=3000, end_ms=4000))
     """
     spans: list[Span] = []
     for cue in sorted(cues, key=lambda c: c.start_ms):
+        if cue.end_ms <= cue.start_ms:
+            warnings.warn(
+                f"{cue.location or 'dialogue'}: cue has no duration (it ends when it starts), so it counts as no dialogue "
+                "time; give it an end time after its start to silence this",
+                stacklevel=2,
+            )
+            continue
         if spans and cue.start_ms <= spans[-1].end_ms:
             spans[-1] = Span(spans[-1].start_ms, max(spans[-1].end_ms, cue.end_ms))
         else:
@@ -165,10 +185,29 @@ def _where(name: str, line: int) -> str:
     return f"{name}, line {line}" if line > 0 else name
 
 
-def _arrow_lines(text: str) -> list[int]:
-    # In a well-formed file every line holding "-->" is a cue timing line (WebVTT forbids
-    # the arrow in cue text and comments), so the n-th such line belongs to the n-th cue.
+def _vtt_timing_lines(text: str) -> list[int]:
+    # In a well-formed WebVTT file every line holding "-->" is a cue timing line (WebVTT
+    # forbids the arrow in cue text and comments), so the n-th such line is the n-th cue's.
     return [number for number, line in enumerate(text.splitlines(), start=1) if "-->" in line]
+
+
+def _srt_timing_lines(text: str, cues: Sequence[SubtitleCue]) -> list[int]:
+    """The line number of each cue's timing line, cues in file order.
+
+    SRT cue text may hold "-->" or even a line shaped like a timing line, so walk the file:
+    the next timing-shaped line is this cue's, and its text lines are skipped before looking
+    for the next cue's.
+    """
+    rows = text.split("\n")  # the srt library breaks lines at \n (and \r\n) only
+    found, row = [], 0
+    for cue in cues:
+        while row < len(rows) and not _SRT_TIMING.match(rows[row]):
+            row += 1
+        if row == len(rows):
+            break
+        found.append(row + 1)
+        row += 2 + cue.text.count("\n")  # the timing line, then the cue's text lines
+    return found
 
 
 def _stamp_ms(stamp: webvtt.models.Timestamp) -> int:

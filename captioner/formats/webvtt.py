@@ -32,7 +32,7 @@ def escape(text: str) -> str:
 
 
 def note_text(text: str) -> str:
-    """Make text safe for a NOTE block: no blank lines, and no "-->" anywhere.
+    r"""Make text safe for a NOTE block: no blank lines, and no "-->" anywhere.
 
     Replacing once is not enough ("--->" would become "-->" again), hence the loop.
 
@@ -49,6 +49,16 @@ def note_text(text: str) -> str:
 def _note(text: str) -> str:
     # A NOTE block ends at a blank line and may not contain "-->".
     return "NOTE\n" + note_text(text)
+
+
+def cue_payload(lines: Sequence[str]) -> str:
+    """Cue text for plain caption lines: escaped, blank lines left out (a blank line would
+    end the cue), and a non-breaking space when nothing is left, so the cue keeps a payload.
+
+    >>> cue_payload(["[door slams]", " ", "<b>"])
+    '[door slams]\\n&lt;b&gt;'
+    """
+    return "\n".join(escape(line) for line in lines if line.strip()) or "&nbsp;"
 
 
 def cue_block(start_ms: int, end_ms: int, payload: str, *, identifier: str = "", settings: str = "") -> str:
@@ -69,9 +79,5 @@ def document(blocks: Sequence[str], *, note: str = "", header_blocks: Sequence[s
 
 def dumps(cues: Sequence[Cue], note: str = "") -> str:
     """The whole WebVTT file as text; `note` becomes a NOTE block after the header."""
-    blocks = []
-    for cue in cues:
-        identifier = cue.event_ids[0] if cue.event_ids else ""
-        body = "\n".join(escape(line) for line in cue.lines if line.strip()) or "&nbsp;"
-        blocks.append(cue_block(cue.start_ms, cue.end_ms, body, identifier=identifier))
+    blocks = [cue_block(c.start_ms, c.end_ms, cue_payload(c.lines), identifier=c.event_ids[0] if c.event_ids else "") for c in cues]
     return document(blocks, note=note)

@@ -119,7 +119,9 @@ def test_bytes_undefined_in_windows_1252_fall_back_to_latin_1(tmp_path: Path) ->
         # W3C WebVTT: a cue's end time must be greater than its start time
         ("order.vtt", "WEBVTT\n\n00:00:01.000 --> 00:00:02.000\nhi\n\n00:00:05.000 --> 00:00:04.000\nho\n", 6, "ends before or when it starts"),
         ("garbage.srt", "\n\nnot a subtitle\n\n1\n00:00:01,000 --> 00:00:02,000\nhi\n", 3, "not valid SRT"),
-        ("order.srt", "1\n00:00:01,000 --> 00:00:02,000\nhi\n\n2\n00:00:03,000 --> 00:00:03,000\nho\n", 6, "ends before or when it starts"),
+        ("order.srt", "1\n00:00:01,000 --> 00:00:02,000\nhi\n\n2\n00:00:03,000 --> 00:00:02,500\nho\n", 6, "ends before or when it starts"),
+        # SRT cue text may hold "-->": the line named is the bad cue's timing line, not the text's
+        ("arrow.srt", "1\n00:00:01,000 --> 00:00:02,000\nrun --> now\n\n2\n00:00:05,000 --> 00:00:03,000\nho\n", 6, "ends before"),
         ("webvtt.srt", "WEBVTT\n\n00:00:01.000 --> 00:00:02.000\nhi\n", 1, "not valid SRT"),
     ],
 )
@@ -162,3 +164,34 @@ def test_plain_lines_remove_tags_and_decode_references() -> None:
 def test_parse_keeps_file_order_for_cues_with_equal_times() -> None:
     text = "WEBVTT\n\n00:00:01.000 --> 00:00:02.000\nfirst\n\n00:00:01.000 --> 00:00:02.000\nsecond\n\n00:00:00.500 --> 00:00:03.000\nearlier\n"
     assert [c.text for c in parse_subtitles(text, "vtt").cues] == ["earlier", "first", "second"]
+
+
+def test_each_cue_knows_the_line_of_its_timing_line() -> None:
+    # cue text holding an arrow, and even a line shaped like a timing line, is still text
+    text = "1\n00:00:01,000 --> 00:00:02,000\nrun --> now\n00:00:09,000 --> 00:00:10,000 is the clip\n\n2\n00:00:03,000 --> 00:00:04,000\nho\n"
+    assert len(list(srt.parse(text))) == 2  # the reference library reads two cues too
+    assert [c.location for c in parse_subtitles(text, "srt", name="talk.srt").cues] == ["talk.srt, line 2", "talk.srt, line 7"]
+    vtt = "WEBVTT\n\nNOTE x\n\nintro\n00:00:01.000 --> 00:00:02.000\nhi\n\n00:00:03.000 --> 00:00:04.000\nho\n"
+    assert [c.location for c in parse_subtitles(vtt, "vtt", name="talk.vtt").cues] == ["talk.vtt, line 6", "talk.vtt, line 9"]
+
+
+@pytest.mark.parametrize(
+    ("name", "text"),
+    [
+        ("talk.vtt", "WEBVTT\n\n00:00:01.000 --> 00:00:02.000\nHi\n\n00:00:03.000 --> 00:00:03.000\nBlink\n\n00:00:05.000 --> 00:00:06.000\nBye\n"),
+        ("talk.srt", "1\n00:00:01,000 --> 00:00:02,000\nHi\n\n2\n00:00:03,000 --> 00:00:03,000\nBlink\n\n3\n00:00:05,000 --> 00:00:06,000\nBye\n"),
+    ],
+)
+def test_a_zero_length_cue_is_kept_but_counts_as_no_dialogue_time(tmp_path: Path, name: str, text: str) -> None:
+    path = tmp_path / name
+    path.write_text(text, encoding="utf-8")
+    # the reference readers keep it (the W3C WebVTT parsing rules, from memory, do not compare
+    # start and end), so the track keeps it too and a merge passes it through untouched
+    reference = [c.raw_text for c in webvtt.read(str(path)).captions] if name.endswith(".vtt") else [s.content for s in srt.parse(text)]
+    track = read_track(path)
+    assert [c.text for c in track.cues] == reference == ["Hi", "Blink", "Bye"]
+    assert (track.cues[1].start_ms, track.cues[1].end_ms) == (3000, 3000)
+    with pytest.warns(UserWarning, match=r"talk[.](vtt|srt), line 6: cue has no duration") as caught:
+        spans = dialogue_spans(track.cues)
+    assert len(caught) == 1
+    assert spans == (Span(1000, 2000), Span(5000, 6000))
