@@ -8,6 +8,8 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING
 
+from threadpoolctl import threadpool_limits
+
 from . import media
 from .cues import Cue, build_cues
 from .dialogue import speech_spans
@@ -99,7 +101,10 @@ def caption_file(
     rate = pack.manifest.frontend.sample_rate
     chunks = media.decode_chunks(path, stream, sample_rate=rate, expected_ms=info.duration_ms)
     progress = (lambda samples: on_progress(round(samples * 1000 / rate))) if on_progress else None
-    track = compute_scores(chunks, pack.classifier, pack.manifest.frontend, hop_ms=style.detection.patch_hop_ms, on_progress=progress)
+    # One BLAS thread: the per-chunk products are small, and spare BLAS threads only spin on
+    # the core that ffmpeg needs for decoding (measured: 60 min in 8.0 s instead of 9.7 s).
+    with threadpool_limits(limits=1, user_api="blas"):
+        track = compute_scores(chunks, pack.classifier, pack.manifest.frontend, hop_ms=style.detection.patch_hop_ms, on_progress=progress)
     spans, events, decisions, cues = caption_track(track, pack.vocabulary, style, dialogue=dialogue)
     return Captioned(path, style, pack.manifest.name, track, spans, dialogue_source, events, decisions, cues)
 

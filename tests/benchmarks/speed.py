@@ -23,6 +23,7 @@ import time
 from pathlib import Path
 
 import numpy as np
+from threadpoolctl import threadpool_limits
 
 from captioner import media, packs, pipeline
 from captioner.features import PatchStream
@@ -73,12 +74,13 @@ def measure(path: Path, stage: str) -> dict[str, float]:
         patch_stream = PatchStream(frontend, hop_frames)
         n = 0
         step = 60 * frontend.sample_rate
-        for i in range(0, audio.size, step):
-            patches = patch_stream.push(np.asarray(audio[i : i + step])).patches
-            if stage == "classify":
-                for j in range(0, patches.shape[0], 256):
-                    pack.classifier(patches[j : j + 256])
-            n += patches.shape[0]
+        with threadpool_limits(limits=1, user_api="blas"):  # as the pipeline runs them
+            for i in range(0, audio.size, step):
+                patches = patch_stream.push(np.asarray(audio[i : i + step])).patches
+                if stage == "classify":
+                    for j in range(0, patches.shape[0], 256):
+                        pack.classifier(patches[j : j + 256])
+                n += patches.shape[0]
         extra = {"patches": n}
     seconds = time.perf_counter() - began
     peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
