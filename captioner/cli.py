@@ -133,7 +133,7 @@ def _caption(args: argparse.Namespace) -> int:
 
 
 def _merge(args: argparse.Namespace) -> int:
-    from .formats import write_atomic
+    from .formats import sidecar, write_atomic
     from .formats.merge import dumps_merged, merge_table, merge_tracks, outcomes_json, sound_cues_from_track
     from .formats.subtitles import read_track
     from .style import load_style
@@ -151,7 +151,7 @@ def _merge(args: argparse.Namespace) -> int:
         write_atomic(output, text, force=args.force)
     if args.events_json:
         document = {"dialogue": args.dialogue_subs.name, "sound_cues_file": args.sound_cues.name, "style": style.name, "strategy": style.merge.strategy, "sound_cues": outcomes_json(merged)}
-        write_atomic(args.events_json, json.dumps(document, indent=1, ensure_ascii=False) + "\n", force=args.force)
+        write_atomic(args.events_json, sidecar.dumps(document), force=args.force)
     if args.explain:
         print(merge_table(merged), file=sys.stderr)
     if output is not None and not args.quiet:
