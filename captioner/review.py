@@ -24,7 +24,7 @@ from urllib.parse import quote
 from .cues import word
 from .errors import MediaError, SubtitleError
 from .formats import sound_track_path
-from .formats.subtitles import SubtitleTrack, plain_lines, read_track
+from .formats.subtitles import SubtitleTrack, decode_text, plain_lines, read_track
 from .style import Wording
 from .update import note_blocks
 
@@ -95,7 +95,8 @@ def page_data(inputs: ReviewInputs, page: Path) -> dict[str, Any]:
     track = inputs.captions
     folder = Path(page).resolve().parent
     relative = Path(os.path.relpath(inputs.media.resolve(), folder)).as_posix()
-    text = inputs.captions_path.read_text(encoding="utf-8-sig", errors="replace") if track.format == "vtt" else ""
+    # NOTE blocks are not part of the parsed track; read them with the same decoder as the cues.
+    text = decode_text(inputs.captions_path, inputs.captions_path.read_bytes()) if track.format == "vtt" else ""
     return {
         "media": {"src": quote(relative), "name": inputs.media.name, "kind": media_kind(inputs.media)},
         "captions": {
