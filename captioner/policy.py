@@ -271,8 +271,11 @@ def _dialogue(alive: list[SoundEvent], dialogue: tuple[Span, ...], settings: Sel
             if event.priority < settings.dialogue_min_priority and event.kind is not Kind.MUSIC:
                 drop(event, "dialogue", f"priority {event.priority} sound under dialogue")
                 continue
-            if event.peak_score < settings.dialogue_confidence:
-                drop(event, "dialogue", f"under dialogue and peak score {event.peak_score:.2f} < {settings.dialogue_confidence}")
+            # Attention sounds (doorbell, phone, knock, alarms) are costlier to miss, so under
+            # dialogue they need less confidence than ordinary story sounds.
+            needed = settings.dialogue_alert_confidence if event.priority >= 4 else settings.dialogue_confidence
+            if event.peak_score < needed:
+                drop(event, "dialogue", f"under dialogue and peak score {event.peak_score:.2f} < {needed}")
                 continue
         survivors.append(_into_gap(event, dialogue, settings, notes))
     return survivors

@@ -85,6 +85,7 @@ class Selection:
     dialogue_gate: bool = True
     dialogue_min_priority: int = 3  # under dialogue, lower priorities are dropped ...
     dialogue_confidence: float = 0.7  # ... and kept ones need this confidence
+    dialogue_alert_confidence: float = 0.5  # ... or this, for attention sounds (priority 4-5)
     gap_shift_ms: int = 1000  # a short event under dialogue may move this far into a gap (0 = off)
     short_event_ms: int = 2000  # only events shorter than this move
     cooldown_ms: int = 6000  # same concept again within this after it ended joins the earlier cue (0 = off)
@@ -140,6 +141,7 @@ _RANGES: dict[str, tuple[float, float]] = {
     "speech_offset": (0.0, 1.0),
     "min_confidence": (0.0, 1.0),
     "dialogue_confidence": (0.0, 1.0),
+    "dialogue_alert_confidence": (0.0, 1.0),
     "dialogue_min_priority": (1, 6),
     "max_cues_per_minute": (0, 60),
     "bridge_ms": (0, 10000),

@@ -111,7 +111,7 @@ def test_dialogue_drops_low_priority_and_asks_more_confidence_of_the_rest() -> N
     sure_knock = event("s", "knock", 6000, 6500, 0.9, priority=4)
     music = event("m", "music", 4000, 9000, 0.75, kind=Kind.MUSIC, priority=3)
     clear = event("c", "dog", 12000, 13000, 0.4, priority=3)
-    settings = replace(OPEN, dialogue_gate=True, dialogue_min_priority=3, dialogue_confidence=0.7)
+    settings = replace(OPEN, dialogue_gate=True, dialogue_min_priority=3, dialogue_confidence=0.7, dialogue_alert_confidence=0.7)
     kept, rules = run([rustle, unsure_knock, sure_knock, music, clear], settings, talk)
     assert kept == {"s", "m", "c"}
     assert rules["r"] == rules["k"] == "dialogue"
@@ -275,3 +275,13 @@ def test_a_brief_mood_still_words_a_long_score() -> None:
     settings = replace(OPEN, parent_redundancy=True, music_detail_confidence=0.6, music_min_ms=3000)
     selected = select_events([music, piano], (), settings)
     assert [(e.event_id, e.phrase) for e in selected.kept] == [("m", "piano music")]
+
+
+def test_attention_sounds_under_dialogue_need_less_confidence() -> None:
+    talk = (Span(0, 10000),)
+    knock = event("k", "knock", 3000, 3500, 0.6, priority=4)
+    dog = event("d", "dog", 6000, 6500, 0.6, priority=3)
+    settings = replace(OPEN, dialogue_gate=True, dialogue_min_priority=3, dialogue_confidence=0.7, dialogue_alert_confidence=0.5)
+    kept, rules = run([knock, dog], settings, talk)
+    assert kept == {"k"} and rules["d"] == "dialogue"
+    assert run([knock, dog], replace(settings, dialogue_alert_confidence=0.7), talk)[0] == set()

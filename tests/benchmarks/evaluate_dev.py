@@ -41,6 +41,7 @@ ABLATIONS: list[tuple[str, str, dict[str, Any]]] = [
     ("sourceless sounds at any confidence (generic_confidence 0)", "selection", {"generic_confidence": 0.0}),
     ("no safety exemption from the evidence gate", "selection", {"safety_confidence": 1.0}),
     ("dialogue rule off", "selection", {"dialogue_gate": False}),
+    ("alerts under dialogue as sure as other sounds", "selection", {"dialogue_alert_confidence": 0.7}),
     ("move into dialogue gaps off", "selection", {"gap_shift_ms": 0}),
     ("cooldown/joining off", "selection", {"cooldown_ms": 0}),
     ("cooldown 20 s for every sound", "selection", {"cooldown_ms": 20000}),
