@@ -58,7 +58,7 @@ def build_parser() -> argparse.ArgumentParser:
         formatter_class=argparse.RawDescriptionHelpFormatter,
         epilog=(
             "examples:\n"
-            "  captioner merge demo.vtt demo.dialogue.vtt -o demo.merged.vtt\n"
+            "  captioner merge demo.sounds.vtt demo.dialogue.vtt -o demo.merged.vtt\n"
             "  captioner merge film.sounds.srt film.en.srt -o film.en.sdh.srt --style capitals --explain\n"
             "  captioner caption demo.mp4 --dialogue demo.dialogue.vtt --merge -o demo.merged.vtt"
         ),
@@ -133,7 +133,7 @@ def build_parser() -> argparse.ArgumentParser:
             "examples:\n"
             "  captioner evaluate truth.csv captions/                     # concepts.yaml beside truth.csv\n"
             "  captioner evaluate truth.csv captions/ --dialogue dialogue.csv --durations files.csv --json report.json\n"
-            "  captioner evaluate truth.csv captions/ --scores            # needs NAME.json sidecars (--events-json)"
+            "  captioner evaluate truth.csv captions/ --scores            # needs NAME.sounds.json sidecars (--events-json)"
         ),
     )
     evaluate.add_argument("truth", type=Path, metavar="TRUTH.csv", help="truth events: file,onset,offset,concept (seconds)")
