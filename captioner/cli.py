@@ -29,19 +29,7 @@ def main(argv: list[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
     try:
         with _warnings_to_stderr():
-            if args.command == "caption":
-                return _caption(args)
-            if args.command == "models":
-                return _models(args)
-            if args.command == "batch":
-                return _batch(args)
-            if args.command == "merge":
-                return _merge(args)
-            if args.command == "evaluate":
-                return _evaluate(args)
-            if args.command == "review":
-                return _review(args)
-            return _styles()
+            return _RUNNERS[args.command](args)
     except CaptionerError as exc:
         if args.debug:
             traceback.print_exc()
@@ -292,13 +280,25 @@ def _review(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
-def _styles() -> int:
+def _styles(_args: argparse.Namespace) -> int:
     from .style import builtin_styles, load_style
 
     for name, path in sorted(builtin_styles().items()):
         style = load_style(str(path))
         print(f"{name:<10} {style.description}")
     return EXIT_OK
+
+
+# One runner per subcommand; each returns the exit status.
+_RUNNERS: dict[str, Callable[[argparse.Namespace], int]] = {
+    "caption": _caption,
+    "merge": _merge,
+    "batch": _batch,
+    "review": _review,
+    "evaluate": _evaluate,
+    "models": _models,
+    "styles": _styles,
+}
 
 
 if __name__ == "__main__":
