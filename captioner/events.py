@@ -153,7 +153,10 @@ def detect_events(track: ScoreTrack, vocabulary: Vocabulary, settings: Detection
         smooth = median_filter(curve, size=kernel, mode="nearest") if kernel > 1 and entries[0].kind in LASTING else curve
         runs = hysteresis(bridge(smooth, span), settings.onset_threshold, settings.offset_threshold)
         if entries[0].kind in LASTING:
-            runs = [r for r in runs if int((smooth[r[0] : r[1]] >= settings.onset_threshold).sum()) >= needed]
+            runs = [
+                r for r in runs
+                if int((smooth[r[0] : r[1]] >= settings.onset_threshold).sum()) >= needed or smooth[r[0] : r[1]].max() >= settings.lasting_sure_score
+            ]
         spans = _merge_runs([_run_to_ms(track, run) for run in runs], settings.merge_gap_ms)
         columns = [e.index for e in entries]
         for start_ms, end_ms, first, last in spans:

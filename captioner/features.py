@@ -87,6 +87,21 @@ def analyse(samples: np.ndarray, frontend: Frontend, filterbank: np.ndarray | No
     return mel, energy_db
 
 
+def shift_level(log_mel_frames: np.ndarray, gain_db: float, log_offset: float) -> np.ndarray:
+    """Log-mel frames of the same audio made `gain_db` louder, computed from the frames alone.
+
+    A gain g scales every STFT magnitude, hence every mel energy, by g:
+    log(g * (exp(L) - offset) + offset) is exactly what `analyse` would give for g * samples.
+
+    >>> frames = np.log(np.array([[1.0, 100.0]]) + 0.001)  # mel energies 1 and 100
+    >>> [round(float(v), 1) for v in np.exp(shift_level(frames, 20.0, 0.001))[0] - 0.001]  # 20 dB = 10x
+    [10.0, 1000.0]
+    """
+    linear = np.maximum(np.exp(log_mel_frames.astype(np.float64)) - log_offset, 0.0)
+    shifted: np.ndarray = np.log(linear * 10.0 ** (gain_db / 20.0) + log_offset).astype(np.float32)
+    return shifted
+
+
 def log_mel(samples: np.ndarray, frontend: Frontend, filterbank: np.ndarray | None = None) -> np.ndarray:
     """Log-mel frames of mono float32 audio, shape (n_frames, n_mels), no centering."""
     return analyse(samples, frontend, filterbank)[0]

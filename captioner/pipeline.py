@@ -104,7 +104,7 @@ def caption_file(
     # One BLAS thread: the per-chunk products are small, and spare BLAS threads only spin on
     # the core that ffmpeg needs for decoding (measured: 60 min in 8.0 s instead of 9.7 s).
     with threadpool_limits(limits=1, user_api="blas"):
-        track = compute_scores(chunks, pack.classifier, pack.manifest.frontend, hop_ms=style.detection.patch_hop_ms, on_progress=progress)
+        track = compute_scores(chunks, pack.classifier, pack.manifest.frontend, hop_ms=style.detection.patch_hop_ms, level_spread_db=style.detection.level_spread_db, on_progress=progress)
     spans, events, decisions, cues = caption_track(track, pack.vocabulary, style, dialogue=dialogue)
     return Captioned(path, style, pack.manifest.name, track, spans, dialogue_source, events, decisions, cues)
 

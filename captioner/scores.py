@@ -8,7 +8,7 @@ from typing import Protocol
 
 import numpy as np
 
-from .features import Frontend, PatchStream
+from .features import Frontend, PatchStream, shift_level
 
 
 class Classifier(Protocol):
@@ -53,11 +53,14 @@ def compute_scores(
     *,
     hop_ms: int,
     batch_size: int = 256,
+    level_spread_db: float = 0.0,
     on_progress: Callable[[int], None] | None = None,
 ) -> ScoreTrack:
     """Classify overlapping patches of the decoded audio.
 
     `hop_ms` is the patch hop; it must be a whole number of frontend frames.
+    `level_spread_db` > 0 scores every patch three times, as heard, `level_spread_db`
+    quieter and as much louder, and keeps the mean (see `_classify`).
     `on_progress` receives the number of samples consumed after each chunk.
     """
     hop_frames = round(hop_ms / frontend.frame_ms)
@@ -71,11 +74,11 @@ def compute_scores(
         total_samples += chunk.size
         block = stream.push(chunk)
         energy_blocks.append(block.energy_db)
-        score_blocks.extend(_classify(classifier, block.patches, batch_size))
+        score_blocks.extend(_classify(classifier, block.patches, batch_size, level_spread_db, frontend.log_offset))
         if on_progress:
             on_progress(chunk.size)
     tail = stream.finish()
-    score_blocks.extend(_classify(classifier, tail.patches, batch_size))
+    score_blocks.extend(_classify(classifier, tail.patches, batch_size, level_spread_db, frontend.log_offset))
     scores = np.concatenate(score_blocks) if score_blocks else np.zeros((0, 0), np.float32)
     return ScoreTrack(
         scores=scores.astype(np.float32, copy=False),
@@ -87,5 +90,20 @@ def compute_scores(
     )
 
 
-def _classify(classifier: Classifier, patches: np.ndarray, batch_size: int) -> list[np.ndarray]:
-    return [classifier(patches[i : i + batch_size]) for i in range(0, patches.shape[0], batch_size)]
+def _classify(classifier: Classifier, patches: np.ndarray, batch_size: int, spread_db: float, log_offset: float) -> list[np.ndarray]:
+    """Scores per batch; with a spread, the mean over three playback levels of each patch.
+
+    An 8-bit classifier answers in coarse steps, and a sound a few dB louder or quieter
+    can flip a class between steps. Averaging over levels smooths those steps and damps
+    one-level flukes: on recorded test sets this raised the class-balanced average
+    precision and cut isolated false peaks, for three times the classifier's work.
+    """
+    out = []
+    for i in range(0, patches.shape[0], batch_size):
+        batch = patches[i : i + batch_size]
+        if spread_db <= 0:
+            out.append(classifier(batch))
+            continue
+        levels = np.concatenate([shift_level(batch, -spread_db, log_offset), batch, shift_level(batch, spread_db, log_offset)])
+        out.append(classifier(levels).reshape(3, batch.shape[0], -1).mean(axis=0))
+    return out

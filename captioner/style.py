@@ -49,9 +49,11 @@ class Detection:
     """Turning score curves into timed events."""
 
     patch_hop_ms: int = 480
+    level_spread_db: float = 6.0  # score each patch also this much quieter and louder, keep the mean (0 = once)
     median_ms: int = 0  # median filter on lasting sounds' score curves (0 = off)
     bridge_ms: int = 1440  # running maximum that joins flickering patches (0 = off)
     lasting_min_active_ms: int = 960  # lasting sounds need this long above onset_threshold
+    lasting_sure_score: float = 0.7  # ... unless one patch scores this high (1 = never)
     onset_threshold: float = 0.25  # a concept becomes active above this ...
     offset_threshold: float = 0.12  # ... and stays active above this
     min_event_ms: int = 100
@@ -84,7 +86,7 @@ class Selection:
     music_min_ms: int = 3000  # shorter "music" is left out: usually a tonal sound, not a score (0 = off)
     dialogue_gate: bool = True
     dialogue_min_priority: int = 3  # under dialogue, lower priorities are dropped ...
-    dialogue_confidence: float = 0.7  # ... and kept ones need this confidence
+    dialogue_confidence: float = 0.6  # ... and kept ones need this confidence
     dialogue_alert_confidence: float = 0.5  # ... or this, for attention sounds (priority 4-5)
     gap_shift_ms: int = 1000  # a short event under dialogue may move this far into a gap (0 = off)
     short_event_ms: int = 2000  # only events shorter than this move
@@ -134,6 +136,7 @@ _RANGES: dict[str, tuple[float, float]] = {
     "reading_rate_wpm": (60, 400),
     "sync_tolerance_ms": (0, 5000),
     "patch_hop_ms": (10, 960),
+    "level_spread_db": (0.0, 20.0),
     "median_ms": (0, 10000),
     "onset_threshold": (0.0, 1.0),
     "offset_threshold": (0.0, 1.0),
@@ -146,6 +149,7 @@ _RANGES: dict[str, tuple[float, float]] = {
     "max_cues_per_minute": (0, 60),
     "bridge_ms": (0, 10000),
     "lasting_min_active_ms": (0, 10000),
+    "lasting_sure_score": (0.0, 1.0),
     "end_cue_min_ms": (0, 600000),
     "min_salience": (0.0, 2.0),
     "priority_weight": (0.0, 1.0),

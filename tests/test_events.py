@@ -76,11 +76,18 @@ def test_bridge_never_lowers_a_score() -> None:
 
 def test_a_lasting_sound_needs_more_than_one_active_patch() -> None:
     scores, energy = make_track()
-    scores[20, PHONE] = 0.7
+    scores[20, PHONE] = 0.6
     assert events_of(track_of(scores, energy)) == []
     assert [e.concept for e in events_of(track_of(scores, energy), lasting_min_active_ms=0)] == ["telephone"]
-    scores[21, PHONE] = 0.7
+    scores[21, PHONE] = 0.6
     assert [e.concept for e in events_of(track_of(scores, energy))] == ["telephone"]
+
+
+def test_one_sure_patch_is_enough_for_a_lasting_sound() -> None:
+    scores, energy = make_track()
+    scores[20, PHONE] = 0.8  # above lasting_sure_score (0.7)
+    assert [e.concept for e in events_of(track_of(scores, energy))] == ["telephone"]
+    assert events_of(track_of(scores, energy), lasting_sure_score=1.0) == []
 
 
 def test_speech_and_ignored_classes_never_become_events() -> None:

@@ -6,7 +6,7 @@ import librosa
 import numpy as np
 import pytest
 
-from captioner.features import Frontend, PatchStream, log_mel, mel_filterbank
+from captioner.features import Frontend, PatchStream, log_mel, mel_filterbank, shift_level
 
 
 def test_filterbank_matches_librosa_htk_without_norm() -> None:
@@ -54,3 +54,20 @@ def test_short_input_is_padded_to_one_patch() -> None:
 def test_frontend_rejects_bad_parameters(bad: dict) -> None:
     with pytest.raises(ValueError):
         Frontend(**bad)
+
+
+@pytest.mark.parametrize("gain_db", [-6.0, 6.0, 20.0])
+def test_level_shift_equals_librosa_log_mel_of_the_scaled_signal(gain_db: float) -> None:
+    # Reference: librosa's magnitude STFT and HTK mel bank on the samples times the gain
+    # (a gain scales every STFT magnitude linearly, so the shifted frames must match).
+    frontend = Frontend()
+    rng = np.random.default_rng(3)
+    samples = (rng.normal(0, 0.05, 16000) * np.linspace(0.0, 1.0, 16000)).astype(np.float32)  # quiet start: frames near the log floor
+    scaled = samples * np.float32(10.0 ** (gain_db / 20.0))
+    padded = np.concatenate([np.zeros(56, np.float32), scaled, np.zeros(56, np.float32)])
+    spectrum = np.abs(librosa.stft(padded, n_fft=512, hop_length=160, win_length=400, window="hann", center=False))
+    reference = np.log(librosa.filters.mel(sr=16000, n_fft=512, n_mels=64, fmin=125.0, fmax=7500.0, htk=True, norm=None) @ spectrum + 0.001).T
+    shifted = shift_level(log_mel(samples, frontend), gain_db, frontend.log_offset)
+    n = min(len(shifted), len(reference))
+    np.testing.assert_allclose(shifted[:n], reference[:n], atol=5e-3)
+    assert not np.allclose(shifted, log_mel(samples, frontend), atol=0.1)  # the shift really changes the frames

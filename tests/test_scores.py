@@ -11,6 +11,7 @@ import numpy as np
 import pytest
 
 from captioner import media, packs
+from captioner.features import Frontend, shift_level
 from captioner.scores import compute_scores
 from conftest import tone, write_wav
 
@@ -50,3 +51,33 @@ def test_track_shape_timing_and_padding(pack: packs.LoadedPack, tmp_path: Path) 
     assert longer.n_patches == 1 + (998 - 96) // 48
     assert longer.patch_ms == 960 and longer.duration_ms == 10000
     assert ((longer.scores >= 0) & (longer.scores <= 1)).all()
+
+
+class _LevelMeter:
+    """A stand-in classifier whose one score is the patch's mean log-mel value, squashed; records batch sizes."""
+
+    def __init__(self) -> None:
+        self.batches: list[int] = []
+
+    def __call__(self, patches: np.ndarray) -> np.ndarray:
+        self.batches.append(patches.shape[0])
+        return (1.0 / (1.0 + np.exp(-patches.mean(axis=(1, 2)))))[:, None].astype(np.float32)
+
+
+def test_level_spread_scores_are_the_mean_over_three_levels() -> None:
+    frontend = Frontend()
+    rng = np.random.default_rng(4)
+    samples = rng.normal(0, 0.05, 16000 * 4).astype(np.float32)
+    once, spread = _LevelMeter(), _LevelMeter()
+    single = compute_scores([samples], once, frontend, hop_ms=480)
+    mean = compute_scores([samples], spread, frontend, hop_ms=480, level_spread_db=6.0)
+    assert sum(spread.batches) == 3 * sum(once.batches) == 3 * single.n_patches
+    # The expected value from the three versions of the patches, computed here independently.
+    from captioner.features import PatchStream
+
+    patches = PatchStream(frontend, 48).push(samples).patches
+    levels = [shift_level(patches, gain, frontend.log_offset) for gain in (-6.0, 6.0)] + [patches]
+    expected = np.mean([_LevelMeter()(p) for p in levels], axis=0)
+    np.testing.assert_allclose(mean.scores, expected, atol=1e-6)
+    assert not np.allclose(mean.scores, single.scores, atol=1e-4)  # the levels did differ
+    np.testing.assert_array_equal(mean.energy_db, single.energy_db)  # level checks still use the signal as heard

@@ -41,6 +41,8 @@ def test_malformed_yaml_names_the_line(tmp_path: Path) -> None:
         ("fonts: {}\n", r"unknown section\(s\) fonts"),
         ("wording:\n  case: title\n", r"wording.case='title' is not one of lower, upper"),
         ("detection:\n  onset_threshold: 0.2\n  offset_threshold: 0.4\n", r"offset_threshold=0.4 is above"),
+        ("detection:\n  level_spread_db: -3\n", r"detection.level_spread_db=-3 is outside 0..20"),
+        ("detection:\n  level_spread_db: loud\n", r"detection.level_spread_db='loud' must be a float"),
     ],
 )
 def test_invalid_values_are_named(tmp_path: Path, text: str, message: str) -> None:

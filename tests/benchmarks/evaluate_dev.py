@@ -41,7 +41,8 @@ ABLATIONS: list[tuple[str, str, dict[str, Any]]] = [
     ("sourceless sounds at any confidence (generic_confidence 0)", "selection", {"generic_confidence": 0.0}),
     ("no safety exemption from the evidence gate", "selection", {"safety_confidence": 1.0}),
     ("dialogue rule off", "selection", {"dialogue_gate": False}),
-    ("alerts under dialogue as sure as other sounds", "selection", {"dialogue_alert_confidence": 0.7}),
+    ("alerts under dialogue as sure as other sounds", "selection", {"dialogue_alert_confidence": 0.6}),
+    ("story sounds under dialogue need 0.7", "selection", {"dialogue_confidence": 0.7}),
     ("move into dialogue gaps off", "selection", {"gap_shift_ms": 0}),
     ("cooldown/joining off", "selection", {"cooldown_ms": 0}),
     ("cooldown 20 s for every sound", "selection", {"cooldown_ms": 20000}),
@@ -141,6 +142,21 @@ def main(argv: list[str] | None = None) -> int:
         folder = work / ("off-" + "-".join(changes))
         write_captions(folder, recaption(tracks, pack, variant))
         print(overall_row(name, score(eval_dir, folder)["overall"]), flush=True)
+
+    print("\n### Scoring: one pass or the mean over three input levels (whole pipeline)\n")
+    print("| level spread (dB) | F1 | P | R | events found | cues | onset error (s) | false alarms / dialogue min | seconds for the set |")
+    print("|---:|---:|---:|---:|---:|---:|---:|---:|---:|")
+    for spread in sorted({0.0, 3.0, style.detection.level_spread_db, 9.0}):
+        variant = replace(style, "detection", level_spread_db=spread)
+        _, spread_cues, spread_seconds = (tracks, cues, seconds) if spread == style.detection.level_spread_db else caption_set(eval_dir, pack, variant)
+        folder = work / f"spread-{spread:g}"
+        write_captions(folder, spread_cues)
+        o = score(eval_dir, folder)["overall"]
+        print(
+            f"| {spread:g} | {_f(o['F1'])} | {_f(o['P'])} | {_f(o['R'])} | {o['events_hit']}/{o['events']} | {o['cues']} "
+            f"| {_f(o['onset_mae'], 2)} | {_f(o['false_alarms_per_dialogue_minute'], 2)} | {spread_seconds:.1f} |",
+            flush=True,
+        )
 
     hops = [int(h) for h in args.hops.split(",") if h.strip()]
     if hops:
