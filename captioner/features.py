@@ -97,8 +97,8 @@ def shift_level(log_mel_frames: np.ndarray, gain_db: float, log_offset: float) -
     >>> [round(float(v), 1) for v in np.exp(shift_level(frames, 20.0, 0.001))[0] - 0.001]  # 20 dB = 10x
     [10.0, 1000.0]
     """
-    linear = np.maximum(np.exp(log_mel_frames.astype(np.float64)) - log_offset, 0.0)
-    shifted: np.ndarray = np.log(linear * 10.0 ** (gain_db / 20.0) + log_offset).astype(np.float32)
+    linear = np.maximum(np.exp(log_mel_frames, dtype=np.float32) - np.float32(log_offset), np.float32(0.0))
+    shifted: np.ndarray = np.log(linear * np.float32(10.0 ** (gain_db / 20.0)) + np.float32(log_offset))
     return shifted
 
 

@@ -72,6 +72,7 @@ def test_level_spread_scores_are_the_mean_over_three_levels() -> None:
     single = compute_scores([samples], once, frontend, hop_ms=480)
     mean = compute_scores([samples], spread, frontend, hop_ms=480, level_spread_db=6.0)
     assert sum(spread.batches) == 3 * sum(once.batches) == 3 * single.n_patches
+    assert max(spread.batches) == max(once.batches)  # levels go one at a time, never as a triple batch
     # The expected value from the three versions of the patches, computed here independently.
     from captioner.features import PatchStream
 

@@ -27,6 +27,7 @@ from threadpoolctl import threadpool_limits
 
 from captioner import media, packs, pipeline
 from captioner.features import PatchStream
+from captioner.scores import compute_scores
 from captioner.style import load_style
 
 
@@ -72,15 +73,13 @@ def measure(path: Path, stage: str) -> dict[str, float]:
         audio = np.memmap(raw, dtype="<f4", mode="r")
         began, cpu = time.perf_counter(), time.process_time()
         patch_stream = PatchStream(frontend, hop_frames)
-        n = 0
         step = 60 * frontend.sample_rate
+        chunks = (np.asarray(audio[i : i + step]) for i in range(0, audio.size, step))
         with threadpool_limits(limits=1, user_api="blas"):  # as the pipeline runs them
-            for i in range(0, audio.size, step):
-                patches = patch_stream.push(np.asarray(audio[i : i + step])).patches
-                if stage == "classify":
-                    for j in range(0, patches.shape[0], 256):
-                        pack.classifier(patches[j : j + 256])
-                n += patches.shape[0]
+            if stage == "classify":  # as the pipeline scores: every patch at three levels
+                n = compute_scores(chunks, pack.classifier, frontend, hop_ms=style.detection.patch_hop_ms, level_spread_db=style.detection.level_spread_db).n_patches
+            else:
+                n = sum(patch_stream.push(chunk).patches.shape[0] for chunk in chunks)
         extra = {"patches": n}
     seconds = time.perf_counter() - began
     peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
