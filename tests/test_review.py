@@ -136,6 +136,29 @@ def test_sidecar_curves_cover_the_concepts_that_can_become_captions(tmp_path: Pa
     assert (curves["hop_ms"], curves["patch_ms"]) == (track.hop_ms, track.patch_ms)
 
 
+def test_sidecar_curves_keep_small_scores_apart_on_one_line_each(tmp_path: Path) -> None:
+    import numpy as np
+
+    from captioner.formats.sidecar import dumps, sidecar
+    from captioner.pipeline import Captioned
+    from captioner.scores import ScoreTrack
+    from captioner.style import load_style
+    from captioner.vocabulary import ClassEntry, Kind, Vocabulary
+
+    vocabulary = Vocabulary((
+        ClassEntry(0, "Dog", "dog", "dog barking", "dog barks", Kind.TRANSIENT, 3, None),
+        ClassEntry(1, "Cat", "cat", "cat meowing", "cat meows", Kind.TRANSIENT, 3, None),
+    ))
+    scores = np.array([[0.91234, 0.0004], [0.000123, 0.0002], [0.000456, 0.0001]], dtype=np.float32)
+    run = Captioned(tmp_path / "clip.wav", load_style("brackets"), "test", ScoreTrack(scores, 480, 960, np.zeros(200), 10.0, 1920), (), "classifier", (), (), ())
+    text = dumps(sidecar(run, vocabulary))
+    curves = json.loads(text)["scores"]["concepts"]
+    # Two significant digits: the small scores stay distinct and ordered, so rank measures
+    # (ROC AUC) read from the file agree with the run; the cat never reached 0.001 and is left out.
+    assert curves == {"dog": [0.91, 0.00012, 0.00046]}
+    assert '"dog": [0.91,0.00012,0.00046]' in text
+
+
 def test_page_is_self_contained_and_its_policy_allows_exactly_its_script(review_files: dict[str, Path]) -> None:
     html = review_files["page"].read_text()
     assert HOSTILE not in html and TRAP not in html and "</script> &" not in html

@@ -303,7 +303,7 @@ class SidecarScores:
 
     curves: vocabulary concept id -> (n_patches,) float64 in [0, 1]; patch i covers
     [i * hop_ms, i * hop_ms + patch_ms). A concept absent here never reached the
-    sidecar's floor (0.02) and scores about 0 throughout.
+    sidecar's floor (0.001) and scores about 0 throughout.
     """
 
     pack: str
