@@ -41,6 +41,7 @@ class SoundEvent:
     joined: int = 0  # later occurrences folded into this one by the selection policy
     generic: bool = False  # the concept's wording names no source (see the vocabulary)
     floor_db: float | None = None  # noise floor around it (dBFS, FLOOR_PERCENTILE of the same window); None = unknown
+    parent_wording: tuple[str, str] | tuple[()] = ()  # the parent concept's (phrase, phrase_present), for sounds too close to tell apart
 
     @property
     def duration_ms(self) -> int:
@@ -147,6 +148,7 @@ def detect_events(track: ScoreTrack, vocabulary: Vocabulary, settings: Detection
     kernel = median_patches(settings.median_ms, track.hop_ms)
     span = median_patches(settings.bridge_ms, track.hop_ms)
     lineage = ancestry(vocabulary)
+    by_concept = vocabulary.concepts()
     needed = max(1, -(-settings.lasting_min_active_ms // track.hop_ms))  # ceiling division
     found: list[SoundEvent] = []
     for concept, (curve, entries) in concept_curves(track, vocabulary).items():
@@ -185,11 +187,17 @@ def detect_events(track: ScoreTrack, vocabulary: Vocabulary, settings: Detection
                     background_db=background,
                     ancestors=lineage.get(concept, ()),
                     generic=best.generic,
+                    parent_wording=_wording(by_concept.get(best.parent or "", ())),
                     floor_db=floor,
                 )
             )
     found.sort(key=lambda e: (e.start_ms, -e.priority, e.concept))
     return [replace(e, event_id=f"e{number:04d}") for number, e in enumerate(found, start=1)]
+
+
+def _wording(entries: tuple[ClassEntry, ...]) -> tuple[str, str] | tuple[()]:
+    """(phrase, phrase_present) of a concept: its first class names it; () without classes."""
+    return (entries[0].phrase, entries[0].phrase_present) if entries else ()
 
 
 def _run_to_ms(track: ScoreTrack, run: tuple[int, int]) -> tuple[int, int, int, int]:

@@ -8,7 +8,9 @@ Rules run in a fixed order; the first rule that drops an event names the decisio
                   or it is an unsure child that its surer parent already names
     music      -- a mood/genre/singing detail that is not confident enough to word the music
     duration   -- music shorter than music_min_ms (checked after the music wording is given)
-    sibling    -- another refinement of the same parent scored higher on the same sound
+    sibling    -- another refinement of the same parent scored higher on the same sound (when
+                  the two scored within sibling_margin, the kept one is worded as the parent:
+                  "[alarm blaring]", not a guess between "car alarm" and "smoke alarm")
     generic    -- a sourceless description ("beeping") beside a specific sound of that moment,
                   or alone and not sure enough to be worth a caption
     repeat     -- the same concept again within the cooldown: joined to the earlier event
@@ -92,7 +94,7 @@ def select_events(events: list[SoundEvent], dialogue: tuple[Span, ...], settings
     if settings.music_min_ms > 0:  # after _parents, so a brief mood or instrument still words a long score
         alive = _brief_music(alive, settings.music_min_ms, drop)
     if settings.sibling_redundancy:
-        alive = _siblings(alive, drop)
+        alive = _siblings(alive, settings.sibling_margin, drop, notes)
     if settings.generic_redundancy:
         alive = _generics(alive, settings.cooldown_ms, drop)
     if settings.generic_confidence > 0:
@@ -195,9 +197,14 @@ def _parents(alive: list[SoundEvent], settings: Selection, drop: _Drop, notes: d
     return [by_id[e.event_id] for e in alive if e.event_id not in gone]
 
 
-def _siblings(alive: list[SoundEvent], drop: _Drop) -> list[SoundEvent]:
-    """Refinements of the same parent that share most of their time are one sound, named once."""
+def _siblings(alive: list[SoundEvent], margin: float, drop: _Drop, notes: dict[str, str]) -> list[SoundEvent]:
+    """Refinements of the same parent that share most of their time are one sound, named once.
+
+    When the classifier could barely tell them apart (peaks within `margin`), the sound is
+    named by what they share: a wrong specific name misleads more than a right general one.
+    """
     gone: set[str] = set()
+    reworded: dict[str, SoundEvent] = {}
     for event in sorted(alive, key=lambda e: -e.peak_score):
         if event.event_id in gone or event.parent is None:
             continue
@@ -207,7 +214,11 @@ def _siblings(alive: list[SoundEvent], drop: _Drop) -> list[SoundEvent]:
             if _shared_ms(event, other) * 2 >= min(event.duration_ms, other.duration_ms) and other.peak_score <= event.peak_score:
                 gone.add(other.event_id)
                 drop(other, "sibling", f"same sound as {event.concept} ({event.event_id}), which scored higher")
-    return [e for e in alive if e.event_id not in gone]
+                if event.peak_score - other.peak_score < margin and event.parent_wording and event.event_id not in reworded:
+                    phrase, present = event.parent_wording
+                    reworded[event.event_id] = replace(event, phrase=phrase, phrase_present=present)
+                    notes[event.event_id] = f"worded as {event.parent}: {other.concept} scored {other.peak_score:.2f}, too close to tell"
+    return [reworded.get(e.event_id, e) for e in alive if e.event_id not in gone]
 
 
 def _generics(alive: list[SoundEvent], cooldown_ms: int, drop: _Drop) -> list[SoundEvent]:

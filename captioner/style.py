@@ -80,6 +80,7 @@ class Selection:
     parent_redundancy: bool = True  # a confident child replaces its parent (car horn > vehicle)
     child_confidence: float = 0.6  # below this a child yields to an equally sure parent
     sibling_redundancy: bool = True  # overlapping siblings are one sound: keep the surest
+    sibling_margin: float = 0.1  # siblings closer than this in score: word the sound as their parent (0 = off)
     generic_redundancy: bool = True  # "[beeping]" is left out beside a specific sound of the same moment
     generic_confidence: float = 0.8  # a generic sound no specific one names needs this peak score (alerts exempt; 0 = off)
     music_detail_confidence: float = 0.6  # mood/genre/singing wording only above this
@@ -156,6 +157,7 @@ _RANGES: dict[str, tuple[float, float]] = {
     "contrast_weight": (0.0, 1.0),
     "length_weight": (0.0, 1.0),
     "child_confidence": (0.0, 1.0),
+    "sibling_margin": (0.0, 1.0),
     "music_detail_confidence": (0.0, 1.0),
     "gap_shift_ms": (0, 5000),
     "short_event_ms": (0, 20000),

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import replace
 
 from captioner.events import SoundEvent, Span
@@ -102,6 +103,18 @@ def test_overlapping_siblings_are_one_sound() -> None:
     kept, rules = run([smoke, buzzer, later], replace(OPEN, sibling_redundancy=True))
     assert kept == {"s", "c"} and rules["b"] == "sibling"
     assert run([smoke, buzzer, later], OPEN)[0] == {"s", "b", "c"}
+
+
+def test_siblings_too_close_to_tell_are_worded_as_their_parent() -> None:
+    car = dataclasses.replace(event("c", "car_alarm", 1000, 6000, 0.50, priority=5, parent="alarm"), parent_wording=("alarm blaring", "alarm blares"))
+    smoke = event("s", "smoke_alarm", 1000, 6000, 0.44, priority=5, parent="alarm")
+    settings = replace(OPEN, sibling_redundancy=True)
+    selected = select_events([car, smoke], (), settings)
+    assert [(e.event_id, e.phrase) for e in selected.kept] == [("c", "alarm blaring")]
+    assert "too close to tell" in selected.decisions[0].detail
+    assert [e.phrase for e in select_events([car, smoke], (), replace(settings, sibling_margin=0.0)).kept] == ["car alarm"]
+    sure = dataclasses.replace(car, peak_score=0.8)  # clearly the surer one: keeps its own name
+    assert [e.phrase for e in select_events([sure, smoke], (), settings).kept] == ["car alarm"]
 
 
 def test_dialogue_drops_low_priority_and_asks_more_confidence_of_the_rest() -> None:

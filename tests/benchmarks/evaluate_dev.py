@@ -37,6 +37,7 @@ ABLATIONS: list[tuple[str, str, dict[str, Any]]] = [
     ("priority ignored in salience", "selection", {"priority_weight": 0.0}),
     ("parent/child redundancy off", "selection", {"parent_redundancy": False}),
     ("sibling redundancy off", "selection", {"sibling_redundancy": False}),
+    ("close siblings keep the surest one's name (sibling_margin 0)", "selection", {"sibling_margin": 0.0}),
     ("generic/specific redundancy off", "selection", {"generic_redundancy": False}),
     ("sourceless sounds at any confidence (generic_confidence 0)", "selection", {"generic_confidence": 0.0}),
     ("no safety exemption from the evidence gate", "selection", {"safety_confidence": 1.0}),
@@ -52,6 +53,7 @@ ABLATIONS: list[tuple[str, str, dict[str, Any]]] = [
     ("music mood/genre at any confidence", "selection", {"music_detail_confidence": 0.0}),
     ("bridging of flickering patches off", "detection", {"bridge_ms": 0}),
     ("lasting sounds from a single patch", "detection", {"lasting_min_active_ms": 0}),
+    ("no single sure patch for lasting sounds (lasting_sure_score 1)", "detection", {"lasting_sure_score": 1.0}),
     ("median filter 1.44 s on lasting sounds", "detection", {"median_ms": 1440}),
     ("onset refinement off", "detection", {"onset_refine": False}),
 ]
