@@ -5,7 +5,8 @@ Rules run in a fixed order; the first rule that drops an event names the decisio
     confidence, duration, salience  -- the event alone is too weak to caption
     evidence   -- no signal energy backs the claim (near-silence, or not above the noise floor)
     parent     -- a confident, more specific concept covers it (vehicle under car horn),
-                  or it is an unsure child that its surer parent already names
+                  or it is an unsure child that its surer parent already names, or a sure
+                  source whose name a longer sourceless parent ("alarm") takes over
     music      -- a mood/genre/singing detail that is not confident enough to word the music
     duration   -- music shorter than music_min_ms (checked after the music wording is given)
     sibling    -- another refinement of the same parent scored higher on the same sound (when
@@ -164,7 +165,9 @@ def _parents(alive: list[SoundEvent], settings: Selection, drop: _Drop, notes: d
     wording names no source). Otherwise the child is dropped: for an unsure guess the
     broader name is the safer one.
     Music is special: the music event keeps its own span and takes the child's wording
-    when the child reaches music_detail_confidence.
+    when the child reaches music_detail_confidence. So does a generic parent ("[alarm
+    blaring]") that a child at least child_confidence sure covers only in part: a sourceless
+    sound in which a sure source is heard is that source.
     """
     by_id = {e.event_id: e for e in alive}
     gone: set[str] = set()
@@ -185,6 +188,19 @@ def _parents(alive: list[SoundEvent], settings: Selection, drop: _Drop, notes: d
                     drop(child, "music", f"{child.label} {child.peak_score:.2f} < {settings.music_detail_confidence}: plain music wording")
                 break
             if _shared_ms(parent, child) * 2 < parent.duration_ms:
+                if parent.generic and not child.generic and child.peak_score >= settings.child_confidence:
+                    # A sourceless sound ("[alarm blaring]") in which a sure source is heard is
+                    # that source: the span stays, the wording becomes the child's.
+                    current = by_id[parent.event_id]
+                    if current.generic:  # the first sure source wins
+                        by_id[parent.event_id] = replace(
+                            current, label=child.label, phrase=child.phrase, phrase_present=child.phrase_present, generic=False,
+                            peak_score=max(current.peak_score, child.peak_score), priority=max(current.priority, child.priority),
+                        )
+                        notes[parent.event_id] = f"worded by {child.concept} ({child.event_id}, {child.peak_score:.2f})"
+                    gone.add(child.event_id)
+                    drop(child, "parent", f"names the sound of {parent.concept} ({parent.event_id})")
+                    break
                 continue
             named_better = parent.generic and child.peak_score >= parent.peak_score  # "[siren]" over an equally sure "[alarm]"
             if child.peak_score >= settings.child_confidence or salience(child, settings) > salience(parent, settings) or named_better:

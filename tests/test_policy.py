@@ -105,6 +105,19 @@ def test_overlapping_siblings_are_one_sound() -> None:
     assert run([smoke, buzzer, later], OPEN)[0] == {"s", "b", "c"}
 
 
+def test_a_sure_source_inside_a_longer_sourceless_sound_names_it() -> None:
+    alarm = dataclasses.replace(event("a", "alarm", 0, 6000, 0.5, priority=4), generic=True)
+    siren = event("s", "police_siren", 1000, 2000, 0.75, priority=5, parent="siren", ancestors=("siren", "alarm"))
+    settings = replace(OPEN, parent_redundancy=True)
+    selected = select_events([alarm, siren], (), settings)
+    assert [(e.event_id, e.phrase, e.start_ms, e.end_ms, e.generic) for e in selected.kept] == [("a", "police siren", 0, 6000, False)]
+    assert [d.rule for d in selected.decisions] == ["kept", "parent"]
+    unsure = dataclasses.replace(siren, peak_score=0.5)  # below child_confidence: both stay as they are
+    assert [(e.event_id, e.phrase) for e in select_events([alarm, unsure], (), settings).kept] == [("a", "alarm"), ("s", "police siren")]
+    named = dataclasses.replace(alarm, generic=False)  # a named parent is not renamed by a brief child
+    assert {e.event_id for e in select_events([named, siren], (), settings).kept} == {"a", "s"}
+
+
 def test_siblings_too_close_to_tell_are_worded_as_their_parent() -> None:
     car = dataclasses.replace(event("c", "car_alarm", 1000, 6000, 0.50, priority=5, parent="alarm"), parent_wording=("alarm blaring", "alarm blares"))
     smoke = event("s", "smoke_alarm", 1000, 6000, 0.44, priority=5, parent="alarm")
