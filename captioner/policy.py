@@ -25,7 +25,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass, replace
-from typing import Literal
+from typing import Any, Literal
 
 from .dialogue import overlap_ms
 from .events import LASTING, SoundEvent, Span
@@ -156,6 +156,12 @@ def _lineage(event: SoundEvent) -> tuple[str, ...]:
     return event.ancestors or ((event.parent,) if event.parent else ())
 
 
+def _worded_by(parent: SoundEvent, child: SoundEvent, notes: dict[str, str], **changes: Any) -> SoundEvent:
+    """The parent event, keeping its span, worded as the child names the sound."""
+    notes[parent.event_id] = f"worded by {child.concept} ({child.event_id}, {child.peak_score:.2f})"
+    return replace(parent, label=child.label, phrase=child.phrase, phrase_present=child.phrase_present, **changes)
+
+
 def _parents(alive: list[SoundEvent], settings: Selection, drop: _Drop, notes: dict[str, str]) -> list[SoundEvent]:
     """Parent/child redundancy, and music wording from a confident mood, genre or singing child.
 
@@ -181,8 +187,7 @@ def _parents(alive: list[SoundEvent], settings: Selection, drop: _Drop, notes: d
                 if child.peak_score >= settings.music_detail_confidence:
                     current = by_id[parent.event_id]
                     if current.label == parent.label:  # the first confident detail wins
-                        by_id[parent.event_id] = replace(current, label=child.label, phrase=child.phrase, phrase_present=child.phrase_present)
-                        notes[parent.event_id] = f"worded by {child.concept} ({child.event_id}, {child.peak_score:.2f})"
+                        by_id[parent.event_id] = _worded_by(current, child, notes)
                     drop(child, "music", f"wording given to the music cue {parent.event_id}")
                 else:
                     drop(child, "music", f"{child.label} {child.peak_score:.2f} < {settings.music_detail_confidence}: plain music wording")
@@ -193,11 +198,9 @@ def _parents(alive: list[SoundEvent], settings: Selection, drop: _Drop, notes: d
                     # that source: the span stays, the wording becomes the child's.
                     current = by_id[parent.event_id]
                     if current.generic:  # the first sure source wins
-                        by_id[parent.event_id] = replace(
-                            current, label=child.label, phrase=child.phrase, phrase_present=child.phrase_present, generic=False,
-                            peak_score=max(current.peak_score, child.peak_score), priority=max(current.priority, child.priority),
+                        by_id[parent.event_id] = _worded_by(
+                            current, child, notes, generic=False, peak_score=max(current.peak_score, child.peak_score), priority=max(current.priority, child.priority)
                         )
-                        notes[parent.event_id] = f"worded by {child.concept} ({child.event_id}, {child.peak_score:.2f})"
                     gone.add(child.event_id)
                     drop(child, "parent", f"names the sound of {parent.concept} ({parent.event_id})")
                     break

@@ -72,13 +72,13 @@ def measure(path: Path, stage: str) -> dict[str, float]:
                 sink.write(chunk.tobytes())
         audio = np.memmap(raw, dtype="<f4", mode="r")
         began, cpu = time.perf_counter(), time.process_time()
-        patch_stream = PatchStream(frontend, hop_frames)
         step = 60 * frontend.sample_rate
         chunks = (np.asarray(audio[i : i + step]) for i in range(0, audio.size, step))
         with threadpool_limits(limits=1, user_api="blas"):  # as the pipeline runs them
             if stage == "classify":  # as the pipeline scores: every patch at three levels
                 n = compute_scores(chunks, pack.classifier, frontend, hop_ms=style.detection.patch_hop_ms, level_spread_db=style.detection.level_spread_db).n_patches
             else:
+                patch_stream = PatchStream(frontend, hop_frames)
                 n = sum(patch_stream.push(chunk).patches.shape[0] for chunk in chunks)
         extra = {"patches": n}
     seconds = time.perf_counter() - began
