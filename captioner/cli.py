@@ -42,7 +42,14 @@ def main(argv: list[str] | None = None) -> int:
 
 @contextmanager
 def _warnings_to_stderr() -> Iterator[None]:
-    def show(message: Warning | str, category: type[Warning], filename: str, lineno: int, file: object = None, line: str | None = None) -> None:
+    def show(
+        message: Warning | str,
+        category: type[Warning],
+        filename: str,
+        lineno: int,
+        file: object = None,
+        line: str | None = None,
+    ) -> None:
         print(f"captioner: warning: {message}", file=sys.stderr)
 
     previous = warnings.showwarning
@@ -78,7 +85,9 @@ def _caption(args: argparse.Namespace) -> int:
     if args.merge and track is None:
         raise SubtitleError("--merge", "needs the dialogue track to merge into", "add --dialogue SUBS")
     if args.merge and track is not None:
-        fmt, output = _merged_target(args.output, args.format, track, args.dialogue, merged_track_path(args.input, track.format))
+        fmt, output = _merged_target(
+            args.output, args.format, track, args.dialogue, merged_track_path(args.input, track.format)
+        )
     else:
         fmt, output = _output_target(args)
     updating = args.update and update.updatable(output, merge=args.merge)
@@ -97,13 +106,21 @@ def _caption(args: argparse.Namespace) -> int:
             on_start=bar.start,
             on_progress=bar.advance,
         )
-    drafts = pipeline.draft_outputs(result, pack.vocabulary, fmt, merge_with=track if args.merge else None, dialogue_name=args.dialogue.name if args.dialogue else "")
+    drafts = pipeline.draft_outputs(
+        result,
+        pack.vocabulary,
+        fmt,
+        merge_with=track if args.merge else None,
+        dialogue_name=args.dialogue.name if args.dialogue else "",
+    )
     result, note, merged = drafts.result, drafts.note, drafts.merged  # result: with the merge's left-out cues
     if updating and output is not None:
         text, summary = update.update_vtt(output, result.cues, note)
         say(summary.line())
     else:
-        text = drafts.track if drafts.merged_text is None else drafts.merged_text  # a WebVTT track records its cues for a later --update
+        text = (
+            drafts.track if drafts.merged_text is None else drafts.merged_text
+        )  # a WebVTT track records its cues for a later --update
     if output is None:
         sys.stdout.write(text)
     else:
@@ -115,7 +132,11 @@ def _caption(args: argparse.Namespace) -> int:
         if merged is not None:
             print(merge_table(merged), file=sys.stderr)
     if output is not None and not updating:
-        counted = f"{len(result.cues)} cue(s)" if merged is None else f"{len(merged.cues)} cue(s), {sum(c.dialogue is not None for c in merged.cues)} of them dialogue,"
+        counted = (
+            f"{len(result.cues)} cue(s)"
+            if merged is None
+            else f"{len(merged.cues)} cue(s), {sum(c.dialogue is not None for c in merged.cues)} of them dialogue,"
+        )
         say(f"{counted} written to {output}")
     return EXIT_OK
 
@@ -138,27 +159,44 @@ def _merge(args: argparse.Namespace) -> int:
     else:
         write_atomic(output, text, force=args.force)
     if args.events_json:
-        document = {"dialogue": args.dialogue_subs.name, "sound_cues_file": args.sound_cues.name, "style": style.name, "strategy": style.merge.strategy, "sound_cues": outcomes_json(merged)}
+        document = {
+            "dialogue": args.dialogue_subs.name,
+            "sound_cues_file": args.sound_cues.name,
+            "style": style.name,
+            "strategy": style.merge.strategy,
+            "sound_cues": outcomes_json(merged),
+        }
         write_atomic(args.events_json, sidecar.dumps(document), force=args.force)
     if args.explain:
         print(merge_table(merged), file=sys.stderr)
     if output is not None and not args.quiet:
         dropped = sum(o.action == "dropped" for o in merged.outcomes)
-        print(f"captioner: {len(merged.cues)} cue(s) written to {output}; {dropped} sound cue(s) left out (see --explain)", file=sys.stderr)
+        print(
+            f"captioner: {len(merged.cues)} cue(s) written to {output}; {dropped} sound cue(s) left out (see --explain)",
+            file=sys.stderr,
+        )
     return EXIT_OK
 
 
-def _merged_target(output: str | None, fmt: str | None, dialogue: SubtitleTrack, dialogue_path: Path, default: Path | None) -> tuple[str, Path | None]:
+def _merged_target(
+    output: str | None, fmt: str | None, dialogue: SubtitleTrack, dialogue_path: Path, default: Path | None
+) -> tuple[str, Path | None]:
     """Format and path of a merged track: it must be in the dialogue's format, carried over exactly."""
     path = None if output == "-" else Path(output) if output else default
     suffix = path.suffix.lower().lstrip(".") if path is not None else ""
     wanted = fmt or (suffix if suffix in ("vtt", "srt") else dialogue.format)
     if wanted != dialogue.format:
-        raise SubtitleError(dialogue_path, f"is {dialogue.format.upper()} but the merged track would be {wanted.upper()}", f"write a .{dialogue.format} file: dialogue cues are carried over exactly, so the formats must match")
+        raise SubtitleError(
+            dialogue_path,
+            f"is {dialogue.format.upper()} but the merged track would be {wanted.upper()}",
+            f"write a .{dialogue.format} file: dialogue cues are carried over exactly, so the formats must match",
+        )
     return wanted, path
 
 
-def _refuse_overwrite(outputs: tuple[Path | None, ...], inputs: tuple[Path | None, ...], *, force: bool) -> None:
+def _refuse_overwrite(
+    outputs: tuple[Path | None, ...], inputs: tuple[Path | None, ...], *, force: bool
+) -> None:
     """Check every output before any work, so a run never stops after writing half of them:
     never an input file, never two outputs on one path, a writable folder, and no existing
     file without --force."""
@@ -169,7 +207,9 @@ def _refuse_overwrite(outputs: tuple[Path | None, ...], inputs: tuple[Path | Non
             continue
         resolved = target.resolve()
         if resolved in sources:
-            raise OutputError(target, "is one of the input files, which are never modified", "choose another output path")
+            raise OutputError(
+                target, "is one of the input files, which are never modified", "choose another output path"
+            )
         if resolved in seen:
             raise OutputError(target, "is named for two outputs", "give each output its own path")
         seen.add(resolved)
@@ -179,7 +219,11 @@ def _refuse_overwrite(outputs: tuple[Path | None, ...], inputs: tuple[Path | Non
         if not os.access(folder, os.W_OK):
             raise OutputError(target, f"folder {folder} is not writable", "choose a writable folder")
         if target.exists() and not force:
-            raise OutputError(target, "already exists (it may hold hand edits)", "pass --force to replace it, or choose another path")
+            raise OutputError(
+                target,
+                "already exists (it may hold hand edits)",
+                "pass --force to replace it, or choose another path",
+            )
 
 
 def _output_target(args: argparse.Namespace) -> tuple[str, Path | None]:
@@ -201,7 +245,9 @@ def _batch(args: argparse.Namespace) -> int:
     from .style import load_style
 
     if args.workers is not None and args.workers < 1:
-        raise CaptionerError("--workers", f"--workers {args.workers} is not a number of processes", "pass 1 or more")
+        raise CaptionerError(
+            "--workers", f"--workers {args.workers} is not a number of processes", "pass 1 or more"
+        )
     options = library.BatchOptions(
         folder=args.folder,
         style=load_style(args.style),
@@ -251,12 +297,29 @@ def _evaluate(args: argparse.Namespace) -> int:
     from .separability import evaluate_scores, separability_json, separability_table
 
     if args.json not in (None, "-") and Path(args.json).exists() and not args.force:
-        raise OutputError(args.json, "already exists", "pass --force to replace it, or choose another --json path")
+        raise OutputError(
+            args.json, "already exists", "pass --force to replace it, or choose another --json path"
+        )
     if args.scores:
-        separation = evaluate_scores(args.truth, args.captions, cache=packs.cache_root(), concepts_path=args.concepts, score_map_path=args.score_map, durations_path=args.durations, dialogue_path=args.dialogue)
+        separation = evaluate_scores(
+            args.truth,
+            args.captions,
+            cache=packs.cache_root(),
+            concepts_path=args.concepts,
+            score_map_path=args.score_map,
+            durations_path=args.durations,
+            dialogue_path=args.dialogue,
+        )
         table, data = separability_table(separation), separability_json(separation)
     else:
-        quality = evaluate_captions(args.truth, args.captions, concepts_path=args.concepts, collar_ms=round(args.collar * 1000), dialogue_path=args.dialogue, durations_path=args.durations)
+        quality = evaluate_captions(
+            args.truth,
+            args.captions,
+            concepts_path=args.concepts,
+            collar_ms=round(args.collar * 1000),
+            dialogue_path=args.dialogue,
+            durations_path=args.durations,
+        )
         table, data = quality_table(quality), quality_json(quality)
     text = json.dumps(data, indent=1) + "\n"
     if args.json == "-":
@@ -273,10 +336,21 @@ def _review(args: argparse.Namespace) -> int:
     from .review import build_page, default_captions
 
     # The default track and sidecar are inputs too, even when they were not named.
-    inputs = (args.input, args.captions or default_captions(args.input), args.events_json or sound_track_path(args.input, "json"))
+    inputs = (
+        args.input,
+        args.captions or default_captions(args.input),
+        args.events_json or sound_track_path(args.input, "json"),
+    )
     _refuse_overwrite((args.output,), inputs, force=args.force)
-    write_atomic(args.output, build_page(args.input, args.output, captions=args.captions, sidecar=args.events_json), force=args.force)
-    print(f"captioner: review page written to {args.output}; open it in a browser (it needs {args.input.name} at the same relative path)", file=sys.stderr)
+    write_atomic(
+        args.output,
+        build_page(args.input, args.output, captions=args.captions, sidecar=args.events_json),
+        force=args.force,
+    )
+    print(
+        f"captioner: review page written to {args.output}; open it in a browser (it needs {args.input.name} at the same relative path)",
+        file=sys.stderr,
+    )
     return EXIT_OK
 
 

@@ -68,7 +68,9 @@ def reading_ms(lines: tuple[str, ...], layout: Layout) -> int:
     return round(words * 60000 / layout.reading_rate_wpm)
 
 
-def build_cues(events: tuple[SoundEvent, ...], style: Style, duration_ms: int) -> tuple[tuple[Cue, ...], tuple[Decision, ...]]:
+def build_cues(
+    events: tuple[SoundEvent, ...], style: Style, duration_ms: int
+) -> tuple[tuple[Cue, ...], tuple[Decision, ...]]:
     """Word and time each kept event, add end cues, then resolve overlaps and gaps.
 
     Returns the cues in time order and a `layout` decision for any event that could not
@@ -84,12 +86,16 @@ def build_cues(events: tuple[SoundEvent, ...], style: Style, duration_ms: int) -
         lasting = event.kind in _LASTING and event.duration_ms >= wording.end_cue_min_ms and not event.joined
         if wording.end_cues and lasting and event.end_ms < duration_ms - layout.min_duration_ms:
             end_lines = wrap(end_text(event, wording), layout)
-            drafts.append(_timed(event.end_ms, event.end_ms, end_lines, (event.event_id + "-end",), layout, duration_ms))
+            drafts.append(
+                _timed(event.end_ms, event.end_ms, end_lines, (event.event_id + "-end",), layout, duration_ms)
+            )
     drafts.sort(key=lambda c: (c.start_ms, c.end_ms))
     return _resolve(drafts, layout)
 
 
-def _timed(start_ms: int, end_ms: int, lines: tuple[str, ...], ids: tuple[str, ...], layout: Layout, duration_ms: int) -> Cue:
+def _timed(
+    start_ms: int, end_ms: int, lines: tuple[str, ...], ids: tuple[str, ...], layout: Layout, duration_ms: int
+) -> Cue:
     shortest = max(layout.min_duration_ms, reading_ms(lines, layout))
     end = min(max(end_ms, start_ms + shortest), start_ms + layout.max_duration_ms)
     if duration_ms > start_ms:
@@ -118,7 +124,12 @@ def _resolve(drafts: list[Cue], layout: Layout) -> tuple[tuple[Cue, ...], tuple[
             continue
         previous = cues[-1]
         fits = len(previous.lines) + len(cue.lines) <= layout.max_lines
-        both = Cue(cue.start_ms, min(max(previous.end_ms, cue.end_ms), cue.start_ms + layout.max_duration_ms), previous.lines + cue.lines, previous.event_ids + cue.event_ids)
+        both = Cue(
+            cue.start_ms,
+            min(max(previous.end_ms, cue.end_ms), cue.start_ms + layout.max_duration_ms),
+            previous.lines + cue.lines,
+            previous.event_ids + cue.event_ids,
+        )
         if fits and cue.start_ms - previous.start_ms <= layout.sync_tolerance_ms:
             end = min(max(previous.end_ms, cue.end_ms), previous.start_ms + layout.max_duration_ms)
             cues[-1] = replace(both, start_ms=previous.start_ms, end_ms=end)
@@ -127,14 +138,22 @@ def _resolve(drafts: list[Cue], layout: Layout) -> tuple[tuple[Cue, ...], tuple[
             cues.append(cue)
         elif previous.end_ms - cue.start_ms <= layout.sync_tolerance_ms:
             shift = previous.end_ms - cue.start_ms
-            cues.append(replace(cue, start_ms=cue.start_ms + shift, end_ms=max(cue.end_ms, cue.start_ms + shift + layout.min_duration_ms)))
+            cues.append(
+                replace(
+                    cue,
+                    start_ms=cue.start_ms + shift,
+                    end_ms=max(cue.end_ms, cue.start_ms + shift + layout.min_duration_ms),
+                )
+            )
         elif fits:
             # The continuation is named after the sound that starts it: the earlier cue keeps its id.
             cues[-1] = replace(previous, end_ms=cue.start_ms)
             cues.append(replace(both, event_ids=cue.event_ids + previous.event_ids))
         else:
             for event_id in (i for i in cue.event_ids if not i.endswith("-end")):
-                dropped.append(Decision(event_id, False, "layout", "no room on screen beside an earlier caption"))
+                dropped.append(
+                    Decision(event_id, False, "layout", "no room on screen beside an earlier caption")
+                )
     return tuple(unique_ids(_apply_gaps(cues, layout))), tuple(dropped)
 
 
@@ -178,5 +197,7 @@ def _apply_gaps(cues: list[Cue], layout: Layout) -> list[Cue]:
             if following.start_ms - current.start_ms <= layout.max_duration_ms:
                 result[i] = replace(current, end_ms=following.start_ms)
             else:
-                result[i] = replace(current, end_ms=max(current.start_ms + 1, following.start_ms - layout.min_gap_ms))
+                result[i] = replace(
+                    current, end_ms=max(current.start_ms + 1, following.start_ms - layout.min_gap_ms)
+                )
     return result

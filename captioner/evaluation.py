@@ -85,17 +85,27 @@ def keyword_pattern(keywords: Sequence[str]) -> re.Pattern[str]:
     >>> bool(keyword_pattern(["door"]).search("[Door slams]")), bool(keyword_pattern(["door"]).search("[doorbell]"))
     (True, False)
     """
-    alternatives = [r"\s+".join(re.escape(word) for word in keyword.split()) for keyword in sorted(keywords, key=len, reverse=True)]
+    alternatives = [
+        r"\s+".join(re.escape(word) for word in keyword.split())
+        for keyword in sorted(keywords, key=len, reverse=True)
+    ]
     return re.compile(r"(?<!\w)(?:" + "|".join(alternatives) + r")(?!\w)", re.IGNORECASE)
-
-
 
 
 def _ratio(numerator: float, denominator: float) -> float:
     return numerator / denominator if denominator else 0.0
 
 
-def _quality(events: int, detected: int, cues: int, matched: int, onset_errors: list[int], false_alarms: int, truth_free_ms: int, over_dialogue: int | None) -> Quality:
+def _quality(
+    events: int,
+    detected: int,
+    cues: int,
+    matched: int,
+    onset_errors: list[int],
+    false_alarms: int,
+    truth_free_ms: int,
+    over_dialogue: int | None,
+) -> Quality:
     precision, recall = _ratio(matched, cues), _ratio(detected, events)
     return Quality(
         events=events,
@@ -141,7 +151,9 @@ def caption_quality(
     if missing:
         raise ValueError(f"no cues given for annotated file(s) {missing[:3]}")
 
-    counts: dict[str, dict[str, int]] = {c: dict.fromkeys(("cues", "matched", "false_alarms", "over_dialogue"), 0) for c in keywords}
+    counts: dict[str, dict[str, int]] = {
+        c: dict.fromkeys(("cues", "matched", "false_alarms", "over_dialogue"), 0) for c in keywords
+    }
     earliest: dict[int, int] = {}  # index of a detected event -> start of its earliest matching cue
     total = dict.fromkeys(("cues", "matched", "false_alarms", "over_dialogue", "unnamed"), 0)
     truth_free_ms, truth_free_files, unknown_length = 0, 0, []
@@ -161,7 +173,12 @@ def caption_quality(
             over = any(overlaps(cue.start_ms, cue.end_ms, s.start_ms, s.end_ms) for s in speech)
             cue_matched = False
             for concept in named:
-                hits = [i for i, e in file_events if e.concept == concept and overlaps(cue.start_ms, cue.end_ms, e.start_ms - collar_ms, e.end_ms + collar_ms)]
+                hits = [
+                    i
+                    for i, e in file_events
+                    if e.concept == concept
+                    and overlaps(cue.start_ms, cue.end_ms, e.start_ms - collar_ms, e.end_ms + collar_ms)
+                ]
                 for index in hits:
                     earliest[index] = min(earliest.get(index, cue.start_ms), cue.start_ms)
                 counts[concept]["cues"] += 1
@@ -175,7 +192,10 @@ def caption_quality(
             total["over_dialogue"] += over
             total["unnamed"] += not named
     if unknown_length:
-        warnings.warn(f"{len(unknown_length)} file(s) without truth events and without a known duration ({', '.join(unknown_length[:3])}) left out of the false-alarm rate; pass --durations", stacklevel=2)
+        warnings.warn(
+            f"{len(unknown_length)} file(s) without truth events and without a known duration ({', '.join(unknown_length[:3])}) left out of the false-alarm rate; pass --durations",
+            stacklevel=2,
+        )
 
     with_dialogue = dialogue is not None
     concepts = {}
@@ -185,16 +205,28 @@ def caption_quality(
             continue
         found = [i for i in own if i in earliest]
         concepts[concept] = _quality(
-            len(own), len(found), counts[concept]["cues"], counts[concept]["matched"],
+            len(own),
+            len(found),
+            counts[concept]["cues"],
+            counts[concept]["matched"],
             [abs(earliest[i] - events[i].start_ms) for i in found],
-            counts[concept]["false_alarms"], truth_free_ms, counts[concept]["over_dialogue"] if with_dialogue else None,
+            counts[concept]["false_alarms"],
+            truth_free_ms,
+            counts[concept]["over_dialogue"] if with_dialogue else None,
         )
     overall = _quality(
-        len(events), len(earliest), total["cues"], total["matched"],
+        len(events),
+        len(earliest),
+        total["cues"],
+        total["matched"],
         [abs(start - events[i].start_ms) for i, start in earliest.items()],
-        total["false_alarms"], truth_free_ms, total["over_dialogue"] if with_dialogue else None,
+        total["false_alarms"],
+        truth_free_ms,
+        total["over_dialogue"] if with_dialogue else None,
     )
-    return QualityReport(overall, concepts, len(cues), collar_ms, truth_free_files, truth_free_ms, total["unnamed"])
+    return QualityReport(
+        overall, concepts, len(cues), collar_ms, truth_free_files, truth_free_ms, total["unnamed"]
+    )
 
 
 # ---------------------------------------------------------------- from files to a report
@@ -221,7 +253,11 @@ def evaluate_captions(
         AnnotationError, SubtitleError: a missing or malformed input file.
     """
     if collar_ms < 0:
-        raise AnnotationError(f"--collar {collar_ms / 1000:g}", "the collar must not be negative", "pass a collar in seconds such as 1.0")
+        raise AnnotationError(
+            f"--collar {collar_ms / 1000:g}",
+            "the collar must not be negative",
+            "pass a collar in seconds such as 1.0",
+        )
     concepts = read_concepts(concepts_path_for(truth_path, concepts_path))
     events = read_truth(truth_path, concepts)
     dialogue = read_dialogue(dialogue_path) if dialogue_path else None
@@ -234,7 +270,15 @@ def evaluate_captions(
     cues = {name: track.cues for name, track in tracks.items()}
     formats = {name: track.format for name, track in tracks.items()}
     keywords = {concept: spec.keywords for concept, spec in concepts.items()}
-    return caption_quality(events, cues, keywords, collar_ms=collar_ms, durations_ms=durations, dialogue=dialogue, formats=formats)
+    return caption_quality(
+        events,
+        cues,
+        keywords,
+        collar_ms=collar_ms,
+        durations_ms=durations,
+        dialogue=dialogue,
+        formats=formats,
+    )
 
 
 # ---------------------------------------------------------------- output
@@ -246,17 +290,43 @@ def _number(value: float | None, digits: int) -> str:
 
 def quality_table(report: QualityReport) -> str:
     """A plain-text table, one row per concept and an overall row."""
-    header = ("concept", "events", "found", "cues", "match", "prec", "recall", "F1", "cues/event", "onset err s", "false/min", "over dialogue")
+    header = (
+        "concept",
+        "events",
+        "found",
+        "cues",
+        "match",
+        "prec",
+        "recall",
+        "F1",
+        "cues/event",
+        "onset err s",
+        "false/min",
+        "over dialogue",
+    )
     rows = [header]
     for name, q in [*sorted(report.concepts.items()), ("overall", report.overall)]:
-        rows.append((
-            name, str(q.events), str(q.detected_events), str(q.cues), str(q.matched_cues),
-            f"{q.precision:.3f}", f"{q.recall:.3f}", f"{q.f1:.3f}", _number(q.redundancy, 2),
-            _number(None if q.onset_error_ms is None else q.onset_error_ms / 1000, 2),
-            _number(q.false_alarms_per_minute, 2), "-" if q.cues_over_dialogue is None else str(q.cues_over_dialogue),
-        ))
+        rows.append(
+            (
+                name,
+                str(q.events),
+                str(q.detected_events),
+                str(q.cues),
+                str(q.matched_cues),
+                f"{q.precision:.3f}",
+                f"{q.recall:.3f}",
+                f"{q.f1:.3f}",
+                _number(q.redundancy, 2),
+                _number(None if q.onset_error_ms is None else q.onset_error_ms / 1000, 2),
+                _number(q.false_alarms_per_minute, 2),
+                "-" if q.cues_over_dialogue is None else str(q.cues_over_dialogue),
+            )
+        )
     widths = [max(len(row[i]) for row in rows) for i in range(len(header))]
-    lines = ["  ".join(cell.ljust(w) if i == 0 else cell.rjust(w) for i, (cell, w) in enumerate(zip(row, widths))) for row in rows]
+    lines = [
+        "  ".join(cell.ljust(w) if i == 0 else cell.rjust(w) for i, (cell, w) in enumerate(zip(row, widths)))
+        for row in rows
+    ]
     lines.insert(1, "-" * len(lines[0]))
     lines.insert(len(lines) - 1, "-" * len(lines[0]))
     minutes = report.truth_free_ms / 60000
@@ -268,7 +338,9 @@ def quality_table(report: QualityReport) -> str:
 
 
 def _rounded(quality: Quality) -> dict[str, Any]:
-    return {key: round(value, 6) if isinstance(value, float) else value for key, value in asdict(quality).items()}
+    return {
+        key: round(value, 6) if isinstance(value, float) else value for key, value in asdict(quality).items()
+    }
 
 
 def quality_json(report: QualityReport) -> dict[str, Any]:

@@ -40,8 +40,12 @@ class SoundEvent:
     ancestors: tuple[str, ...] = ()  # parent, grandparent, ... (for redundancy between levels)
     joined: int = 0  # later occurrences folded into this one by the selection policy
     generic: bool = False  # the concept's wording names no source (see the vocabulary)
-    floor_db: float | None = None  # noise floor around it (dBFS, FLOOR_PERCENTILE of the same window); None = unknown
-    parent_wording: tuple[str, str] | tuple[()] = ()  # the parent concept's (phrase, phrase_present), for sounds too close to tell apart
+    floor_db: float | None = (
+        None  # noise floor around it (dBFS, FLOOR_PERCENTILE of the same window); None = unknown
+    )
+    parent_wording: (
+        tuple[str, str] | tuple[()]
+    ) = ()  # the parent concept's (phrase, phrase_present), for sounds too close to tell apart
 
     @property
     def duration_ms(self) -> int:
@@ -109,7 +113,9 @@ def bridge(curve: np.ndarray, patches: int) -> np.ndarray:
     return maximum_filter1d(curve, size=patches, mode="nearest") if patches > 1 else curve
 
 
-def concept_curves(track: ScoreTrack, vocabulary: Vocabulary) -> dict[str, tuple[np.ndarray, tuple[ClassEntry, ...]]]:
+def concept_curves(
+    track: ScoreTrack, vocabulary: Vocabulary
+) -> dict[str, tuple[np.ndarray, tuple[ClassEntry, ...]]]:
     """Concept -> (max score over its classes per patch, its classes), captioned kinds only."""
     curves = {}
     for concept, entries in vocabulary.concepts().items():
@@ -152,12 +158,18 @@ def detect_events(track: ScoreTrack, vocabulary: Vocabulary, settings: Detection
     needed = max(1, -(-settings.lasting_min_active_ms // track.hop_ms))  # ceiling division
     found: list[SoundEvent] = []
     for concept, (curve, entries) in concept_curves(track, vocabulary).items():
-        smooth = median_filter(curve, size=kernel, mode="nearest") if kernel > 1 and entries[0].kind in LASTING else curve
+        smooth = (
+            median_filter(curve, size=kernel, mode="nearest")
+            if kernel > 1 and entries[0].kind in LASTING
+            else curve
+        )
         runs = hysteresis(bridge(smooth, span), settings.onset_threshold, settings.offset_threshold)
         if entries[0].kind in LASTING:
             runs = [
-                r for r in runs
-                if int((smooth[r[0] : r[1]] >= settings.onset_threshold).sum()) >= needed or smooth[r[0] : r[1]].max() >= settings.lasting_sure_score
+                r
+                for r in runs
+                if int((smooth[r[0] : r[1]] >= settings.onset_threshold).sum()) >= needed
+                or smooth[r[0] : r[1]].max() >= settings.lasting_sure_score
             ]
         spans = _merge_runs([_run_to_ms(track, run) for run in runs], settings.merge_gap_ms)
         columns = [e.index for e in entries]
@@ -236,7 +248,9 @@ def _frames(track: ScoreTrack, start_ms: float, end_ms: float) -> np.ndarray:
 def _levels(track: ScoreTrack, start_ms: int, end_ms: int) -> tuple[float, float, float]:
     """(level, background, floor) in dBFS: 90th percentile inside, median and FLOOR_PERCENTILE within 5 s around."""
     inside = _frames(track, start_ms, end_ms)
-    around = np.concatenate([_frames(track, start_ms - 5000, start_ms), _frames(track, end_ms, end_ms + 5000)])
+    around = np.concatenate(
+        [_frames(track, start_ms - 5000, start_ms), _frames(track, end_ms, end_ms + 5000)]
+    )
     level = float(np.percentile(inside, 90)) if inside.size else -100.0
     if around.size * track.frame_ms < _MIN_SURROUNDINGS_MS:
         # A sound that fills (nearly) the whole input has no surroundings to compare with;

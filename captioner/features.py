@@ -32,7 +32,9 @@ class Frontend:
         if self.hop_length <= 0 or self.n_mels <= 0 or self.patch_frames <= 0:
             raise ValueError("hop_length, n_mels and patch_frames must be > 0")
         if not 0 <= self.fmin_hz < self.fmax_hz <= self.sample_rate / 2:
-            raise ValueError(f"fmin_hz={self.fmin_hz}, fmax_hz={self.fmax_hz} must satisfy 0 <= fmin < fmax <= sample_rate/2")
+            raise ValueError(
+                f"fmin_hz={self.fmin_hz}, fmax_hz={self.fmax_hz} must satisfy 0 <= fmin < fmax <= sample_rate/2"
+            )
 
     @property
     def frame_ms(self) -> float:
@@ -52,7 +54,9 @@ def hz_to_mel_htk(hz: np.ndarray | float) -> np.ndarray:
 def mel_filterbank(frontend: Frontend) -> np.ndarray:
     """Triangular HTK-mel filters, shape (n_mels, n_fft // 2 + 1), peak value 1 (no area norm)."""
     fft_hz = np.linspace(0.0, frontend.sample_rate / 2, frontend.n_fft // 2 + 1)
-    mel_edges = np.linspace(hz_to_mel_htk(frontend.fmin_hz), hz_to_mel_htk(frontend.fmax_hz), frontend.n_mels + 2)
+    mel_edges = np.linspace(
+        hz_to_mel_htk(frontend.fmin_hz), hz_to_mel_htk(frontend.fmax_hz), frontend.n_mels + 2
+    )
     hz_edges = 700.0 * (10.0 ** (mel_edges / 2595.0) - 1.0)
     lower, centre, upper = hz_edges[:-2, None], hz_edges[1:-1, None], hz_edges[2:, None]
     rising = (fft_hz - lower) / (centre - lower)
@@ -67,13 +71,21 @@ def _periodic_hann(length: int) -> np.ndarray:
 
 def _framed(samples: np.ndarray, frontend: Frontend) -> np.ndarray:
     """Analysis frames, shape (n_frames, win_length); n_frames = 1 + (n - win) // hop (0 when too short)."""
-    n_frames = 0 if samples.size < frontend.win_length else 1 + (samples.size - frontend.win_length) // frontend.hop_length
+    n_frames = (
+        0
+        if samples.size < frontend.win_length
+        else 1 + (samples.size - frontend.win_length) // frontend.hop_length
+    )
     starts = np.arange(n_frames) * frontend.hop_length
-    frames: np.ndarray = samples[starts[:, None] + np.arange(frontend.win_length)].reshape(n_frames, frontend.win_length)
+    frames: np.ndarray = samples[starts[:, None] + np.arange(frontend.win_length)].reshape(
+        n_frames, frontend.win_length
+    )
     return frames
 
 
-def analyse(samples: np.ndarray, frontend: Frontend, filterbank: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+def analyse(
+    samples: np.ndarray, frontend: Frontend, filterbank: np.ndarray | None = None
+) -> tuple[np.ndarray, np.ndarray]:
     """Log-mel frames (n_frames, n_mels) and their RMS levels in dBFS (n_frames,), no centering.
 
     Both come from the same framing, computed once.
@@ -82,7 +94,9 @@ def analyse(samples: np.ndarray, frontend: Frontend, filterbank: np.ndarray | No
     frames = _framed(samples, frontend)
     power = np.mean(np.square(frames, dtype=np.float64), axis=1)
     energy_db: np.ndarray = (10.0 * np.log10(power + 1e-10)).astype(np.float32)
-    magnitude = np.abs(np.fft.rfft(frames * _periodic_hann(frontend.win_length), n=frontend.n_fft, axis=1)).astype(np.float32)
+    magnitude = np.abs(
+        np.fft.rfft(frames * _periodic_hann(frontend.win_length), n=frontend.n_fft, axis=1)
+    ).astype(np.float32)
     mel: np.ndarray = np.log(magnitude @ filterbank.T + frontend.log_offset).astype(np.float32)
     return mel, energy_db
 
@@ -148,7 +162,10 @@ class PatchStream:
     def finish(self) -> PatchBlock:
         """Pad the tail so that a too-short input still yields one patch."""
         if self.patches_emitted > 0:
-            return PatchBlock(np.zeros((0, self.frontend.patch_frames, self.frontend.n_mels), np.float32), np.zeros(0, np.float32))
+            return PatchBlock(
+                np.zeros((0, self.frontend.patch_frames, self.frontend.n_mels), np.float32),
+                np.zeros(0, np.float32),
+            )
         missing = self.frontend.patch_frames - self._frames.shape[0]
         padding = np.full((missing, self.frontend.n_mels), np.log(self.frontend.log_offset), dtype=np.float32)
         self._frames = np.concatenate([self._frames, padding])
@@ -158,7 +175,11 @@ class PatchStream:
         size, hop = self.frontend.patch_frames, self.hop_frames
         count = 0 if self._frames.shape[0] < size else 1 + (self._frames.shape[0] - size) // hop
         starts = np.arange(count) * hop
-        patches = self._frames[starts[:, None] + np.arange(size)] if count else np.zeros((0, size, self.frontend.n_mels), np.float32)
+        patches = (
+            self._frames[starts[:, None] + np.arange(size)]
+            if count
+            else np.zeros((0, size, self.frontend.n_mels), np.float32)
+        )
         self._frames = self._frames[count * hop :]
         self.patches_emitted += count
         return patches

@@ -45,7 +45,25 @@ from .workers import Drafted, Job, dispatch
 
 MEDIA_EXTENSIONS = frozenset(
     {
-        *(".mp4", ".m4v", ".mov", ".mkv", ".webm", ".avi", ".wmv", ".flv", ".mpg", ".mpeg", ".m2ts", ".mts", ".ts", ".mxf", ".3gp", ".ogv", ".vob"),
+        *(
+            ".mp4",
+            ".m4v",
+            ".mov",
+            ".mkv",
+            ".webm",
+            ".avi",
+            ".wmv",
+            ".flv",
+            ".mpg",
+            ".mpeg",
+            ".m2ts",
+            ".mts",
+            ".ts",
+            ".mxf",
+            ".3gp",
+            ".ogv",
+            ".vob",
+        ),
         *(".wav", ".mp3", ".m4a", ".aac", ".flac", ".ogg", ".oga", ".opus", ".wma", ".aif", ".aiff"),
     }
 )
@@ -81,15 +99,28 @@ def find_media(folder: Path, *, output_dir: Path | None = None, fmt: Format = "v
     for here, dirnames, filenames in os.walk(folder):
         base = Path(here)
         dirnames[:] = sorted(d for d in dirnames if not d.startswith(".") and base / d != skip)
-        media = sorted(n for n in filenames if not n.startswith(".") and Path(n).suffix.lower() in MEDIA_EXTENSIONS)
+        media = sorted(
+            n for n in filenames if not n.startswith(".") and Path(n).suffix.lower() in MEDIA_EXTENSIONS
+        )
         by_lower = {n.lower(): n for n in filenames}
         stems = [Path(n).stem.lower() for n in media]
-        ours = {f"{s}{tail}" for s in stems for tail in (f".sounds.{fmt}", ".sounds.json", ".merged.vtt", ".merged.srt")}
+        ours = {
+            f"{s}{tail}"
+            for s in stems
+            for tail in (f".sounds.{fmt}", ".sounds.json", ".merged.vtt", ".merged.srt")
+        }
         for name in media:
             stem = Path(name).stem
             # Two videos with one stem (a.mp4, a.mkv) would share outputs: name those in full.
             label = name if stems.count(stem.lower()) > 1 else stem
-            dialogue = next((base / by_lower[k] for k in (stem.lower() + e for e in DIALOGUE_EXTENSIONS) if k in by_lower and k not in ours), None)
+            dialogue = next(
+                (
+                    base / by_lower[k]
+                    for k in (stem.lower() + e for e in DIALOGUE_EXTENSIONS)
+                    if k in by_lower and k not in ours
+                ),
+                None,
+            )
             relative = (base / name).relative_to(folder)
             target = (skip / relative.parent) if skip else base
             outputs = {"caption": target / f"{label}.sounds.{fmt}", "events": target / f"{label}.sounds.json"}
@@ -150,7 +181,9 @@ def run_batch(
     try:
         root.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
-        raise OutputError(root, f"cannot create the output folder ({exc.strerror})", "choose a writable folder with -o") from exc
+        raise OutputError(
+            root, f"cannot create the output folder ({exc.strerror})", "choose a writable folder with -o"
+        ) from exc
     pack_manifest = packs.read_manifest(options.pack, packs.cache_root())
     base = {
         "pack": pack_manifest.name,
@@ -169,12 +202,23 @@ def run_batch(
             try:
                 fp = fingerprint(item.path)
             except OSError as exc:
-                failures_now.append((item.relative, f"{item.path}: cannot read ({exc.strerror}); check its permissions"))
+                failures_now.append(
+                    (item.relative, f"{item.path}: cannot read ({exc.strerror}); check its permissions")
+                )
                 report_failure(failures_now[-1][1])
                 continue
             settings = _settings(item, base, options)
-            same = previous is not None and previous.fingerprint == fp and previous.settings.digest == settings.digest
-            if same and previous is not None and previous.status == "done" and all(p.exists() for p in item.outputs.values()):
+            same = (
+                previous is not None
+                and previous.fingerprint == fp
+                and previous.settings.digest == settings.digest
+            )
+            if (
+                same
+                and previous is not None
+                and previous.status == "done"
+                and all(p.exists() for p in item.outputs.values())
+            ):
                 skipped += 1
             elif same and previous is not None and previous.status == "failed" and not options.retry_failed:
                 failures_before.append((item.relative, previous.error))
@@ -193,7 +237,9 @@ def run_batch(
             # Largest first, so the last files running in parallel are the short ones.
             ordered = sorted(tasks, key=lambda t: -t.fingerprint.size)
             jobs_in_order = [_job(t, options, pack, cache) for t in ordered]
-            with closing(dispatch(jobs_in_order, workers=options.workers, cluster=options.cluster)) as results:
+            with closing(
+                dispatch(jobs_in_order, workers=options.workers, cluster=options.cluster)
+            ) as results:
                 for drafted in results:
                     task = jobs[drafted.relative]
                     _store(task, drafted, root, manifest, tally)
@@ -232,7 +278,15 @@ def _settings(item: MediaFile, base: dict[str, Any], options: BatchOptions) -> S
         except OSError:
             parts["dialogue"] = [dialogue]
     style_digest = settings_digest(base["style"])
-    return Settings(settings_digest(parts), base["pack"], base["pack_version"], options.style.name, style_digest, options.fmt, dialogue)
+    return Settings(
+        settings_digest(parts),
+        base["pack"],
+        base["pack_version"],
+        options.style.name,
+        style_digest,
+        options.fmt,
+        dialogue,
+    )
 
 
 def _job(task: _Task, options: BatchOptions, pack: str, cache: str | None) -> Job:
@@ -263,8 +317,18 @@ def _store(task: _Task, drafted: Drafted, root: Path, manifest: RunManifest, tal
     old_outputs = dict(previous.outputs) if previous else {}
     old_pending = dict(previous.pending) if previous else {}
     record = FileRecord(
-        task.item.relative, task.fingerprint, task.settings, "failed", drafted.error, drafted.duration_ms or None,
-        None, drafted.caption_s, drafted.load_s, drafted.worker, outputs=old_outputs, pending=old_pending,
+        task.item.relative,
+        task.fingerprint,
+        task.settings,
+        "failed",
+        drafted.error,
+        drafted.duration_ms or None,
+        None,
+        drafted.caption_s,
+        drafted.load_s,
+        drafted.worker,
+        outputs=old_outputs,
+        pending=old_pending,
     )
     error = drafted.error
     if not error and drafted.pack_version != task.settings.pack_version:
@@ -284,17 +348,44 @@ def _store(task: _Task, drafted: Drafted, root: Path, manifest: RunManifest, tal
             target = target.with_name(target.name + EDITED_SUFFIX)
         writes.append((target, text, digest))
     pending = {_key(path, root): digest for path, _, digest in writes}
-    manifest.save(dataclasses.replace(record, status="writing", error="", cues=drafted.cues, pending=old_pending | pending, finished_at=time.time()))
+    manifest.save(
+        dataclasses.replace(
+            record,
+            status="writing",
+            error="",
+            cues=drafted.cues,
+            pending=old_pending | pending,
+            finished_at=time.time(),
+        )
+    )
     written = dict(old_outputs)
     try:
         for path, text, digest in writes:
             _put(path, text, digest)
             written[_key(path, root)] = digest
     except OutputError as exc:
-        manifest.save(dataclasses.replace(record, error=str(exc), outputs=written, pending=old_pending | pending, finished_at=time.time()))
+        manifest.save(
+            dataclasses.replace(
+                record,
+                error=str(exc),
+                outputs=written,
+                pending=old_pending | pending,
+                finished_at=time.time(),
+            )
+        )
         tally.last_error = str(exc)
         return
-    manifest.save(dataclasses.replace(record, status="done", error="", cues=drafted.cues, outputs=written, pending={}, finished_at=time.time()))
+    manifest.save(
+        dataclasses.replace(
+            record,
+            status="done",
+            error="",
+            cues=drafted.cues,
+            outputs=written,
+            pending={},
+            finished_at=time.time(),
+        )
+    )
     tally.done += 1
     tally.media_ms += drafted.duration_ms
     tally.cues += drafted.cues
@@ -310,7 +401,9 @@ def _put(path: Path, text: str, digest: str) -> None:
     try:
         path.parent.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
-        raise OutputError(path.parent, f"cannot create the folder ({exc.strerror})", "check the output folder's permissions") from exc
+        raise OutputError(
+            path.parent, f"cannot create the folder ({exc.strerror})", "check the output folder's permissions"
+        ) from exc
     # A run killed inside write_atomic leaves its hidden temporary file: clear those first.
     for stray in path.parent.glob(f".{_glob_escape(path.name)}.*.tmp"):
         stray.unlink(missing_ok=True)
@@ -338,7 +431,12 @@ class _Bar:
             from tqdm import tqdm
 
             total = sum(t.fingerprint.size for t in tasks)
-            self.bar = tqdm(total=total, file=sys.stderr, leave=False, bar_format="{desc} {percentage:3.0f}%|{bar}| {elapsed}<{remaining}")
+            self.bar = tqdm(
+                total=total,
+                file=sys.stderr,
+                leave=False,
+                bar_format="{desc} {percentage:3.0f}%|{bar}| {elapsed}<{remaining}",
+            )
             self._show()
 
     def __enter__(self) -> _Bar:
@@ -349,7 +447,9 @@ class _Bar:
             self.bar.close()
 
     def _show(self) -> None:
-        self.bar.set_description_str(f"{self.count}/{self.files} files, {self.media_ms / 3_600_000:.2f} h of media", refresh=True)
+        self.bar.set_description_str(
+            f"{self.count}/{self.files} files, {self.media_ms / 3_600_000:.2f} h of media", refresh=True
+        )
 
     def advance(self, size: int, media_ms: int) -> None:
         self.count += 1

@@ -160,13 +160,21 @@ class RunManifest:
             self.db.row_factory = sqlite3.Row
             version = self.db.execute("PRAGMA user_version").fetchone()[0]
             if version > SCHEMA_VERSION:
-                raise OutputError(path, f"run manifest has schema {version}, newer than this captioner knows ({SCHEMA_VERSION})", "upgrade captioner or use another output folder")
+                raise OutputError(
+                    path,
+                    f"run manifest has schema {version}, newer than this captioner knows ({SCHEMA_VERSION})",
+                    "upgrade captioner or use another output folder",
+                )
             self.db.execute("PRAGMA synchronous=FULL")
             with self.db:
                 self.db.executescript(_SCHEMA)
                 self.db.execute(f"PRAGMA user_version={SCHEMA_VERSION}")
         except sqlite3.DatabaseError as exc:
-            raise OutputError(path, f"not a usable run manifest ({exc})", "move it away to start a fresh manifest, or free the folder") from exc
+            raise OutputError(
+                path,
+                f"not a usable run manifest ({exc})",
+                "move it away to start a fresh manifest, or free the folder",
+            ) from exc
 
     def __enter__(self) -> RunManifest:
         return self
@@ -184,10 +192,29 @@ class RunManifest:
         with self.db:
             self.db.execute(
                 "INSERT OR REPLACE INTO files VALUES (?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?,?)",
-                (record.path, fp.size, fp.mtime_ns, fp.edge_hash, st.digest, st.pack, st.pack_version, st.style, st.style_digest,
-                 st.format, st.dialogue, record.status, record.error, record.duration_ms, record.cues, record.caption_s,
-                 record.load_s, record.worker, record.finished_at or time.time(), json.dumps(record.outputs, sort_keys=True),
-                 json.dumps(record.pending, sort_keys=True)),
+                (
+                    record.path,
+                    fp.size,
+                    fp.mtime_ns,
+                    fp.edge_hash,
+                    st.digest,
+                    st.pack,
+                    st.pack_version,
+                    st.style,
+                    st.style_digest,
+                    st.format,
+                    st.dialogue,
+                    record.status,
+                    record.error,
+                    record.duration_ms,
+                    record.cues,
+                    record.caption_s,
+                    record.load_s,
+                    record.worker,
+                    record.finished_at or time.time(),
+                    json.dumps(record.outputs, sort_keys=True),
+                    json.dumps(record.pending, sort_keys=True),
+                ),
             )
 
     def start_run(self) -> int:
@@ -197,14 +224,25 @@ class RunManifest:
 
     def finish_run(self, run_id: int, summary: dict[str, Any]) -> None:
         with self.db:
-            self.db.execute("UPDATE runs SET finished_at = ?, summary = ? WHERE id = ?", (time.time(), json.dumps(summary), run_id))
+            self.db.execute(
+                "UPDATE runs SET finished_at = ?, summary = ? WHERE id = ?",
+                (time.time(), json.dumps(summary), run_id),
+            )
 
 
 def _record(row: sqlite3.Row) -> FileRecord:
     return FileRecord(
         path=row["path"],
         fingerprint=Fingerprint(row["size"], row["mtime_ns"], row["edge_hash"]),
-        settings=Settings(row["settings"], row["pack"], row["pack_version"], row["style"], row["style_digest"], row["format"], row["dialogue"]),
+        settings=Settings(
+            row["settings"],
+            row["pack"],
+            row["pack_version"],
+            row["style"],
+            row["style_digest"],
+            row["format"],
+            row["dialogue"],
+        ),
         status=row["status"],
         error=row["error"],
         duration_ms=row["duration_ms"],
@@ -260,7 +298,11 @@ def summary_json(summary: Summary) -> dict[str, Any]:
 
 def summary_table(summary: Summary) -> str:
     """A short human summary of a run."""
-    workers = "on a Dask cluster" if summary.cluster else f"{summary.workers} worker{'s' if summary.workers != 1 else ''}"
+    workers = (
+        "on a Dask cluster"
+        if summary.cluster
+        else f"{summary.workers} worker{'s' if summary.workers != 1 else ''}"
+    )
     lines = [
         f"{'files':<8}{'done':>8}{'skipped':>9}{'failed':>8}{'total':>8}",
         f"{'':<8}{summary.done:>8}{summary.skipped:>9}{summary.failed + summary.failed_before:>8}{summary.files:>8}",
@@ -268,15 +310,22 @@ def summary_table(summary: Summary) -> str:
             f"media captioned: {summary.media_ms / 3_600_000:.2f} h ({_duration(summary.media_ms / 1000)}) in {_duration(summary.wall_s)} "
             f"({summary.media_hours_per_hour:.1f} h of media per hour, {workers})"
         ),
-        f"cues written: {summary.cues}" + (f"; merged dialogue tracks: {summary.merged}" if summary.merged else ""),
+        f"cues written: {summary.cues}"
+        + (f"; merged dialogue tracks: {summary.merged}" if summary.merged else ""),
     ]
     if summary.edited:
-        lines.append(f"kept {len(summary.edited)} hand-edited output(s); the new draft is beside each as {EDITED_SUFFIX}:")
+        lines.append(
+            f"kept {len(summary.edited)} hand-edited output(s); the new draft is beside each as {EDITED_SUFFIX}:"
+        )
         lines += [f"  {name}" for name in summary.edited]
     if summary.failed_before:
-        lines.append(f"{summary.failed_before} file(s) failed in an earlier run and were not retried (pass --retry-failed)")
+        lines.append(
+            f"{summary.failed_before} file(s) failed in an earlier run and were not retried (pass --retry-failed)"
+        )
     if not summary.ok:
-        lines.append(f"{summary.failed + summary.failed_before} of {summary.files} files failed; see the lines above and {summary.manifest}")
+        lines.append(
+            f"{summary.failed + summary.failed_before} of {summary.files} files failed; see the lines above and {summary.manifest}"
+        )
     return "\n".join(lines)
 
 

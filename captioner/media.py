@@ -85,7 +85,9 @@ def probe(path: Path) -> MediaInfo:
     """
     path = Path(path)
     if path.is_dir():
-        raise MediaError(path, "is a folder, not a media file", "use `captioner batch FOLDER` to caption every file in it")
+        raise MediaError(
+            path, "is a folder, not a media file", "use `captioner batch FOLDER` to caption every file in it"
+        )
     if not path.is_file():
         raise MediaError(path, "file not found", "check the path")
     result = subprocess.run(
@@ -97,7 +99,11 @@ def probe(path: Path) -> MediaInfo:
     text = result.stderr
     if "Input #0" not in text:
         reason = _last_error_line(text, path) or "ffmpeg cannot read it"
-        raise MediaError(path, f"not a readable media file ({reason})", "check that it plays; re-export it if it is damaged")
+        raise MediaError(
+            path,
+            f"not a readable media file ({reason})",
+            "check that it plays; re-export it if it is damaged",
+        )
     streams: list[AudioStream] = []
     for match in _STREAM_LINE.finditer(text):
         streams.append(AudioStream(len(streams), match.group(2).strip(), "(default)" in match.group(2)))
@@ -181,7 +187,11 @@ def decode_chunks(
         message = errors.read().decode("utf-8", "replace")
     if process.returncode != 0:
         reason = _last_error_line(message, path) or f"ffmpeg exit status {process.returncode}"
-        raise MediaError(path, f"audio could not be decoded ({reason})", "check that it plays; re-export it if it is damaged")
+        raise MediaError(
+            path,
+            f"audio could not be decoded ({reason})",
+            "check that it plays; re-export it if it is damaged",
+        )
     if total == 0:
         raise MediaError(path, "the audio stream is empty (zero-length audio)", "check the file has sound")
     if message.strip():
@@ -199,7 +209,10 @@ def _check_damage(path: Path, message: str, decoded_ms: int, expected_ms: int | 
             "copy or export the file again",
         )
     count = sum(1 for line in message.splitlines() if line.strip())
-    warnings.warn(f"{path}: {count} decoder error(s), the audio has damaged stretches; captions near them may be wrong", stacklevel=2)
+    warnings.warn(
+        f"{path}: {count} decoder error(s), the audio has damaged stretches; captions near them may be wrong",
+        stacklevel=2,
+    )
 
 
 def _pump(process: subprocess.Popen[bytes], chunk_bytes: int, chunks: queue.Queue[bytes | None]) -> None:

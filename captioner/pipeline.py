@@ -104,7 +104,14 @@ def caption_file(
     # One BLAS thread: the per-chunk products are small, and spare BLAS threads only spin on
     # the core that ffmpeg needs for decoding (measured: 60 min in 8.0 s instead of 9.7 s).
     with threadpool_limits(limits=1, user_api="blas"):
-        track = compute_scores(chunks, pack.classifier, pack.manifest.frontend, hop_ms=style.detection.patch_hop_ms, level_spread_db=style.detection.level_spread_db, on_progress=progress)
+        track = compute_scores(
+            chunks,
+            pack.classifier,
+            pack.manifest.frontend,
+            hop_ms=style.detection.patch_hop_ms,
+            level_spread_db=style.detection.level_spread_db,
+            on_progress=progress,
+        )
     spans, events, decisions, cues = caption_track(track, pack.vocabulary, style, dialogue=dialogue)
     return Captioned(path, style, pack.manifest.name, track, spans, dialogue_source, events, decisions, cues)
 
@@ -131,11 +138,22 @@ class Drafts:
 
         document = sidecar.sidecar(self.result, self.vocabulary)
         if self.merged is not None:
-            document["merge"] = {"dialogue": self.dialogue_name, "strategy": self.result.style.merge.strategy, "sound_cues": outcomes_json(self.merged)}
+            document["merge"] = {
+                "dialogue": self.dialogue_name,
+                "strategy": self.result.style.merge.strategy,
+                "sound_cues": outcomes_json(self.merged),
+            }
         return sidecar.dumps(document)
 
 
-def draft_outputs(result: Captioned, vocabulary: Vocabulary, fmt: str, *, merge_with: SubtitleTrack | None = None, dialogue_name: str = "") -> Drafts:
+def draft_outputs(
+    result: Captioned,
+    vocabulary: Vocabulary,
+    fmt: str,
+    *,
+    merge_with: SubtitleTrack | None = None,
+    dialogue_name: str = "",
+) -> Drafts:
     """Render a captioned file: the sound track in `fmt` ("vtt" or "srt") and, given a
     dialogue track, that track merged with the sound cues."""
     from . import __version__, update
@@ -150,7 +168,9 @@ def draft_outputs(result: Captioned, vocabulary: Vocabulary, fmt: str, *, merge_
     if merge_with is not None:
         merged = merge_tracks(merge_with, result.cues, result.style)
         drops = {d.event_id: d for d in dropped_decisions(merged)}
-        result = dataclasses.replace(result, decisions=tuple(drops.get(d.event_id, d) for d in result.decisions))
+        result = dataclasses.replace(
+            result, decisions=tuple(drops.get(d.event_id, d) for d in result.decisions)
+        )
         merged_text = dumps_merged(merged, note + f"\nmerged with the dialogue of {dialogue_name}")
     track = update.recorded_vtt(result.cues, note) if fmt == "vtt" else WRITERS[fmt](result.cues, note)
     return Drafts(result, vocabulary, note, track, merged, merged_text, dialogue_name)

@@ -33,7 +33,19 @@ from .style import Selection
 from .vocabulary import Kind
 
 Rule = Literal[
-    "kept", "confidence", "duration", "salience", "evidence", "parent", "music", "sibling", "generic", "dialogue", "repeat", "density", "layout"
+    "kept",
+    "confidence",
+    "duration",
+    "salience",
+    "evidence",
+    "parent",
+    "music",
+    "sibling",
+    "generic",
+    "dialogue",
+    "repeat",
+    "density",
+    "layout",
 ]
 _Drop = Callable[[SoundEvent, Rule, str], None]
 
@@ -107,8 +119,13 @@ def select_events(events: list[SoundEvent], dialogue: tuple[Span, ...], settings
     kept = _cap_density(alive, settings, drop) if settings.max_cues_per_minute > 0 else alive
     for event in kept:
         extra = f"; {notes[event.event_id]}" if event.event_id in notes else ""
-        decisions[event.event_id] = Decision(event.event_id, True, "kept", f"salience {salience(event, settings):.2f}{extra}")
-    return Selected(tuple(sorted(kept, key=lambda e: (e.start_ms, e.event_id))), tuple(decisions[e.event_id] for e in events))
+        decisions[event.event_id] = Decision(
+            event.event_id, True, "kept", f"salience {salience(event, settings):.2f}{extra}"
+        )
+    return Selected(
+        tuple(sorted(kept, key=lambda e: (e.start_ms, e.event_id))),
+        tuple(decisions[e.event_id] for e in events),
+    )
 
 
 def _weak(events: list[SoundEvent], settings: Selection, drop: _Drop) -> list[SoundEvent]:
@@ -123,7 +140,11 @@ def _weak(events: list[SoundEvent], settings: Selection, drop: _Drop) -> list[So
             drop(event, "salience", f"salience {salience(event, settings):.2f} < {settings.min_salience}")
         elif settings.evidence_gate and event.level_db < settings.min_level_db:
             drop(event, "evidence", f"signal level {event.level_db:.0f} dBFS is near silence")
-        elif settings.evidence_gate and event.above_floor_db < settings.min_contrast_db and not _safety_exempt(event, settings):
+        elif (
+            settings.evidence_gate
+            and event.above_floor_db < settings.min_contrast_db
+            and not _safety_exempt(event, settings)
+        ):
             drop(event, "evidence", f"only {event.above_floor_db:+.1f} dB above the noise floor")
         else:
             alive.append(event)
@@ -145,7 +166,11 @@ def _brief_music(alive: list[SoundEvent], music_min_ms: int, drop: _Drop) -> lis
 def _safety_exempt(event: SoundEvent, settings: Selection) -> bool:
     """A confident safety sound (priority 5) is captioned however loud its surroundings are:
     a missed siren costs a viewer far more than a false one."""
-    return event.priority >= 5 and settings.safety_confidence < 1.0 and event.peak_score >= settings.safety_confidence
+    return (
+        event.priority >= 5
+        and settings.safety_confidence < 1.0
+        and event.peak_score >= settings.safety_confidence
+    )
 
 
 def _shared_ms(a: SoundEvent, b: SoundEvent) -> int:
@@ -159,10 +184,14 @@ def _lineage(event: SoundEvent) -> tuple[str, ...]:
 def _worded_by(parent: SoundEvent, child: SoundEvent, notes: dict[str, str], **changes: Any) -> SoundEvent:
     """The parent event, keeping its span, worded as the child names the sound."""
     notes[parent.event_id] = f"worded by {child.concept} ({child.event_id}, {child.peak_score:.2f})"
-    return replace(parent, label=child.label, phrase=child.phrase, phrase_present=child.phrase_present, **changes)
+    return replace(
+        parent, label=child.label, phrase=child.phrase, phrase_present=child.phrase_present, **changes
+    )
 
 
-def _parents(alive: list[SoundEvent], settings: Selection, drop: _Drop, notes: dict[str, str]) -> list[SoundEvent]:
+def _parents(
+    alive: list[SoundEvent], settings: Selection, drop: _Drop, notes: dict[str, str]
+) -> list[SoundEvent]:
     """Parent/child redundancy, and music wording from a confident mood, genre or singing child.
 
     A child replaces a parent it covers for at least half of the parent's time (a brief car
@@ -181,7 +210,9 @@ def _parents(alive: list[SoundEvent], settings: Selection, drop: _Drop, notes: d
         if child.event_id in gone:
             continue
         lineage = _lineage(child)
-        for parent in [e for e in alive if e.concept in lineage and e.event_id not in gone and _shared_ms(e, child) > 0]:
+        for parent in [
+            e for e in alive if e.concept in lineage and e.event_id not in gone and _shared_ms(e, child) > 0
+        ]:
             if parent.kind is Kind.MUSIC and child.kind is Kind.MUSIC:
                 gone.add(child.event_id)
                 if child.peak_score >= settings.music_detail_confidence:
@@ -190,7 +221,11 @@ def _parents(alive: list[SoundEvent], settings: Selection, drop: _Drop, notes: d
                         by_id[parent.event_id] = _worded_by(current, child, notes)
                     drop(child, "music", f"wording given to the music cue {parent.event_id}")
                 else:
-                    drop(child, "music", f"{child.label} {child.peak_score:.2f} < {settings.music_detail_confidence}: plain music wording")
+                    drop(
+                        child,
+                        "music",
+                        f"{child.label} {child.peak_score:.2f} < {settings.music_detail_confidence}: plain music wording",
+                    )
                 break
             if _shared_ms(parent, child) * 2 < parent.duration_ms:
                 if parent.generic and not child.generic and child.peak_score >= settings.child_confidence:
@@ -199,19 +234,34 @@ def _parents(alive: list[SoundEvent], settings: Selection, drop: _Drop, notes: d
                     current = by_id[parent.event_id]
                     if current.generic:  # the first sure source wins
                         by_id[parent.event_id] = _worded_by(
-                            current, child, notes, generic=False, peak_score=max(current.peak_score, child.peak_score), priority=max(current.priority, child.priority)
+                            current,
+                            child,
+                            notes,
+                            generic=False,
+                            peak_score=max(current.peak_score, child.peak_score),
+                            priority=max(current.priority, child.priority),
                         )
                     gone.add(child.event_id)
                     drop(child, "parent", f"names the sound of {parent.concept} ({parent.event_id})")
                     break
                 continue
-            named_better = parent.generic and child.peak_score >= parent.peak_score  # "[siren]" over an equally sure "[alarm]"
-            if child.peak_score >= settings.child_confidence or salience(child, settings) > salience(parent, settings) or named_better:
+            named_better = (
+                parent.generic and child.peak_score >= parent.peak_score
+            )  # "[siren]" over an equally sure "[alarm]"
+            if (
+                child.peak_score >= settings.child_confidence
+                or salience(child, settings) > salience(parent, settings)
+                or named_better
+            ):
                 gone.add(parent.event_id)
                 drop(parent, "parent", f"covered by the more specific {child.concept} ({child.event_id})")
             else:
                 gone.add(child.event_id)
-                drop(child, "parent", f"unsure ({child.peak_score:.2f}); the broader {parent.concept} ({parent.event_id}) names it")
+                drop(
+                    child,
+                    "parent",
+                    f"unsure ({child.peak_score:.2f}); the broader {parent.concept} ({parent.event_id}) names it",
+                )
                 break
     return [by_id[e.event_id] for e in alive if e.event_id not in gone]
 
@@ -230,13 +280,24 @@ def _siblings(alive: list[SoundEvent], margin: float, drop: _Drop, notes: dict[s
         for other in alive:
             if other is event or other.event_id in gone or other.parent != event.parent:
                 continue
-            if _shared_ms(event, other) * 2 >= min(event.duration_ms, other.duration_ms) and other.peak_score <= event.peak_score:
+            if (
+                _shared_ms(event, other) * 2 >= min(event.duration_ms, other.duration_ms)
+                and other.peak_score <= event.peak_score
+            ):
                 gone.add(other.event_id)
-                drop(other, "sibling", f"same sound as {event.concept} ({event.event_id}), which scored higher")
-                if event.peak_score - other.peak_score < margin and event.parent_wording and event.event_id not in reworded:
+                drop(
+                    other, "sibling", f"same sound as {event.concept} ({event.event_id}), which scored higher"
+                )
+                if (
+                    event.peak_score - other.peak_score < margin
+                    and event.parent_wording
+                    and event.event_id not in reworded
+                ):
                     phrase, present = event.parent_wording
                     reworded[event.event_id] = replace(event, phrase=phrase, phrase_present=present)
-                    notes[event.event_id] = f"worded as {event.parent}: {other.concept} scored {other.peak_score:.2f}, too close to tell"
+                    notes[event.event_id] = (
+                        f"worded as {event.parent}: {other.concept} scored {other.peak_score:.2f}, too close to tell"
+                    )
     return [reworded.get(e.event_id, e) for e in alive if e.event_id not in gone]
 
 
@@ -251,7 +312,9 @@ def _generics(alive: list[SoundEvent], cooldown_ms: int, drop: _Drop) -> list[So
     """
     by_id = {e.event_id: e for e in alive}
     gone: set[str] = set()
-    named: dict[str, tuple[str, int]] = {}  # generic concept -> (specific event id, end of the named fragment)
+    named: dict[
+        str, tuple[str, int]
+    ] = {}  # generic concept -> (specific event id, end of the named fragment)
     for generic in sorted((e for e in alive if e.generic), key=lambda e: e.start_ms):
         namer = next((o for o in alive if _names(o, generic) and o.event_id not in gone), None)
         if namer is not None:
@@ -284,10 +347,18 @@ def _unnamed_generics(alive: list[SoundEvent], confidence: float, drop: _Drop) -
 def _names(specific: SoundEvent, generic: SoundEvent) -> bool:
     if specific.generic or _shared_ms(generic, specific) * 2 < generic.duration_ms:
         return False
-    return specific.priority >= generic.priority or (specific.priority == generic.priority - 1 and specific.peak_score >= generic.peak_score)
+    return specific.priority >= generic.priority or (
+        specific.priority == generic.priority - 1 and specific.peak_score >= generic.peak_score
+    )
 
 
-def _dialogue(alive: list[SoundEvent], dialogue: tuple[Span, ...], settings: Selection, drop: _Drop, notes: dict[str, str]) -> list[SoundEvent]:
+def _dialogue(
+    alive: list[SoundEvent],
+    dialogue: tuple[Span, ...],
+    settings: Selection,
+    drop: _Drop,
+    notes: dict[str, str],
+) -> list[SoundEvent]:
     """Sounds under dialogue: drop the unimportant and the unsure; move short ones into a gap.
 
     Music is exempt from the priority test (it is captioned once, at its onset, even
@@ -303,7 +374,9 @@ def _dialogue(alive: list[SoundEvent], dialogue: tuple[Span, ...], settings: Sel
                 continue
             # Attention sounds (doorbell, phone, knock, alarms) are costlier to miss, so under
             # dialogue they need less confidence than ordinary story sounds.
-            needed = settings.dialogue_alert_confidence if event.priority >= 4 else settings.dialogue_confidence
+            needed = (
+                settings.dialogue_alert_confidence if event.priority >= 4 else settings.dialogue_confidence
+            )
             if event.peak_score < needed:
                 drop(event, "dialogue", f"under dialogue and peak score {event.peak_score:.2f} < {needed}")
                 continue
@@ -311,7 +384,9 @@ def _dialogue(alive: list[SoundEvent], dialogue: tuple[Span, ...], settings: Sel
     return survivors
 
 
-def _into_gap(event: SoundEvent, dialogue: tuple[Span, ...], settings: Selection, notes: dict[str, str]) -> SoundEvent:
+def _into_gap(
+    event: SoundEvent, dialogue: tuple[Span, ...], settings: Selection, notes: dict[str, str]
+) -> SoundEvent:
     if settings.gap_shift_ms <= 0 or event.kind in LASTING or event.duration_ms >= settings.short_event_ms:
         return event
     span = next((s for s in dialogue if s.start_ms <= event.start_ms < s.end_ms), None)
@@ -321,10 +396,14 @@ def _into_gap(event: SoundEvent, dialogue: tuple[Span, ...], settings: Selection
     if shift > settings.gap_shift_ms:
         return event
     notes[event.event_id] = f"moved {shift} ms later into a dialogue gap"
-    return replace(event, start_ms=event.start_ms + shift, end_ms=max(event.end_ms, event.start_ms + shift + 1))
+    return replace(
+        event, start_ms=event.start_ms + shift, end_ms=max(event.end_ms, event.start_ms + shift + 1)
+    )
 
 
-def _repeats(alive: list[SoundEvent], cooldown_ms: int, music_cooldown_ms: int, drop: _Drop) -> list[SoundEvent]:
+def _repeats(
+    alive: list[SoundEvent], cooldown_ms: int, music_cooldown_ms: int, drop: _Drop
+) -> list[SoundEvent]:
     """The same concept again within the cooldown extends the earlier event instead of a new cue.
 
     Music gets its own, longer cooldown: a score keeps playing while the classifier's music
@@ -333,13 +412,29 @@ def _repeats(alive: list[SoundEvent], cooldown_ms: int, music_cooldown_ms: int, 
     joined: list[SoundEvent] = []
     for event in sorted(alive, key=lambda e: e.start_ms):
         window = max(cooldown_ms, music_cooldown_ms) if event.kind is Kind.MUSIC else cooldown_ms
-        index = next((i for i in range(len(joined) - 1, -1, -1) if joined[i].concept == event.concept and event.start_ms - joined[i].end_ms < window), None)
+        index = next(
+            (
+                i
+                for i in range(len(joined) - 1, -1, -1)
+                if joined[i].concept == event.concept and event.start_ms - joined[i].end_ms < window
+            ),
+            None,
+        )
         if index is None:
             joined.append(event)
             continue
         earlier = joined[index]
-        joined[index] = replace(earlier, end_ms=max(earlier.end_ms, event.end_ms), peak_score=max(earlier.peak_score, event.peak_score), joined=earlier.joined + 1)
-        drop(event, "repeat", f"joined to {earlier.event_id}, the same sound {max(0, event.start_ms - earlier.end_ms)} ms after it")
+        joined[index] = replace(
+            earlier,
+            end_ms=max(earlier.end_ms, event.end_ms),
+            peak_score=max(earlier.peak_score, event.peak_score),
+            joined=earlier.joined + 1,
+        )
+        drop(
+            event,
+            "repeat",
+            f"joined to {earlier.event_id}, the same sound {max(0, event.start_ms - earlier.end_ms)} ms after it",
+        )
     return joined
 
 

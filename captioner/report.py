@@ -67,5 +67,7 @@ def explain_table(result: Captioned) -> str:
             f"{event.peak_score:5.2f} {event.contrast_db:+5.0f}  {verdict:<10} {decision.detail}"
         )
     kept = sum(d.kept for d in result.decisions)
-    rows.append(f"{len(result.events)} events detected, {kept} kept, {len(result.cues)} cues; dialogue from {result.dialogue_source}")
+    rows.append(
+        f"{len(result.events)} events detected, {kept} kept, {len(result.cues)} cues; dialogue from {result.dialogue_source}"
+    )
     return "\n".join(rows)

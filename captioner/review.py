@@ -80,11 +80,19 @@ def _read_sidecar(path: Path) -> Mapping[str, Any]:
     try:
         document = json.loads(Path(path).read_text(encoding="utf-8"))
     except FileNotFoundError as exc:
-        raise SubtitleError(path, "events JSON not found", "check the path, or leave out --events-json") from exc
+        raise SubtitleError(
+            path, "events JSON not found", "check the path, or leave out --events-json"
+        ) from exc
     except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise SubtitleError(path, f"not a readable events JSON ({exc})", "write it again with `captioner caption --events-json`") from exc
+        raise SubtitleError(
+            path,
+            f"not a readable events JSON ({exc})",
+            "write it again with `captioner caption --events-json`",
+        ) from exc
     if not isinstance(document, dict) or not isinstance(document.get("events"), list):
-        raise SubtitleError(path, "has no 'events' list", "write it again with `captioner caption --events-json`")
+        raise SubtitleError(
+            path, "has no 'events' list", "write it again with `captioner caption --events-json`"
+        )
     return document
 
 
@@ -96,14 +104,18 @@ def page_data(inputs: ReviewInputs, page: Path) -> dict[str, Any]:
     folder = Path(page).resolve().parent
     relative = Path(os.path.relpath(inputs.media.resolve(), folder)).as_posix()
     # NOTE blocks are not part of the parsed track; read them with the same decoder as the cues.
-    text = decode_text(inputs.captions_path, inputs.captions_path.read_bytes()) if track.format == "vtt" else ""
+    text = (
+        decode_text(inputs.captions_path, inputs.captions_path.read_bytes()) if track.format == "vtt" else ""
+    )
     return {
         "media": {"src": quote(relative), "name": inputs.media.name, "kind": media_kind(inputs.media)},
         "captions": {
             "name": inputs.captions_path.name,
             "stem": inputs.captions_path.stem,
             "format": track.format,
-            "notes": list(note_blocks(text)),  # kept on save: the record lets `caption --update` see the edits
+            "notes": list(
+                note_blocks(text)
+            ),  # kept on save: the record lets `caption --update` see the edits
             "header_blocks": list(track.header_blocks),
         },
         "cues": [
@@ -151,7 +163,9 @@ def _curves(sidecar: Mapping[str, Any], concepts: set[str]) -> dict[str, Any]:
     """Score curves of the concepts that produced events, the strongest _MAX_CURVES of them."""
     scores = sidecar.get("scores") or {}
     curves = scores.get("concepts", {})
-    wanted = sorted((name for name in curves if name in concepts), key=lambda name: -max(curves[name], default=0))
+    wanted = sorted(
+        (name for name in curves if name in concepts), key=lambda name: -max(curves[name], default=0)
+    )
     return {
         "hop_ms": scores.get("hop_ms", 0),
         "patch_ms": scores.get("patch_ms", 0),
@@ -166,7 +180,13 @@ def json_for_script(value: object) -> str:
     '{"text": "\\\\u003c/script\\\\u003e\\\\u003cb\\\\u003e\\\\u0026"}'
     """
     text = json.dumps(value, ensure_ascii=False)
-    return text.replace("<", "\\u003c").replace(">", "\\u003e").replace("&", "\\u0026").replace("\u2028", "\\u2028").replace("\u2029", "\\u2029")
+    return (
+        text.replace("<", "\\u003c")
+        .replace(">", "\\u003e")
+        .replace("&", "\\u0026")
+        .replace("\u2028", "\\u2028")
+        .replace("\u2029", "\\u2029")
+    )
 
 
 def render_page(data: Mapping[str, Any]) -> str:

@@ -65,7 +65,9 @@ def compute_scores(
     """
     hop_frames = round(hop_ms / frontend.frame_ms)
     if hop_frames <= 0 or abs(hop_frames * frontend.frame_ms - hop_ms) > 1e-6:
-        raise ValueError(f"hop_ms={hop_ms} must be a positive multiple of the frame hop {frontend.frame_ms} ms")
+        raise ValueError(
+            f"hop_ms={hop_ms} must be a positive multiple of the frame hop {frontend.frame_ms} ms"
+        )
     stream = PatchStream(frontend, hop_frames)
     score_blocks: list[np.ndarray] = []
     energy_blocks: list[np.ndarray] = []
@@ -74,7 +76,9 @@ def compute_scores(
         total_samples += chunk.size
         block = stream.push(chunk)
         energy_blocks.append(block.energy_db)
-        score_blocks.extend(_classify(classifier, block.patches, batch_size, level_spread_db, frontend.log_offset))
+        score_blocks.extend(
+            _classify(classifier, block.patches, batch_size, level_spread_db, frontend.log_offset)
+        )
         if on_progress:
             on_progress(chunk.size)
     tail = stream.finish()
@@ -90,7 +94,9 @@ def compute_scores(
     )
 
 
-def _classify(classifier: Classifier, patches: np.ndarray, batch_size: int, spread_db: float, log_offset: float) -> list[np.ndarray]:
+def _classify(
+    classifier: Classifier, patches: np.ndarray, batch_size: int, spread_db: float, log_offset: float
+) -> list[np.ndarray]:
     """Scores per batch; with a spread, the mean over three playback levels of each patch.
 
     An 8-bit classifier answers in coarse steps, and a sound a few dB louder or quieter
@@ -105,6 +111,10 @@ def _classify(classifier: Classifier, patches: np.ndarray, batch_size: int, spre
             out.append(classifier(batch))
             continue
         # One level at a time: a triple batch would triple the classifier's working memory.
-        total = classifier(batch) + classifier(shift_level(batch, -spread_db, log_offset)) + classifier(shift_level(batch, spread_db, log_offset))
+        total = (
+            classifier(batch)
+            + classifier(shift_level(batch, -spread_db, log_offset))
+            + classifier(shift_level(batch, spread_db, log_offset))
+        )
         out.append(total / 3.0)
     return out

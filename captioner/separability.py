@@ -123,7 +123,9 @@ def d_prime(auc: float) -> float:
     return math.sqrt(2.0) * NormalDist().inv_cdf(auc)
 
 
-def patch_labels(spans_ms: Sequence[tuple[int, int]], n_patches: int, hop_ms: int, patch_ms: int) -> np.ndarray:
+def patch_labels(
+    spans_ms: Sequence[tuple[int, int]], n_patches: int, hop_ms: int, patch_ms: int
+) -> np.ndarray:
     """(n_patches,) booleans: patch i = [i*hop_ms, i*hop_ms+patch_ms) covers half of itself or of a span.
 
     >>> patch_labels([(1000, 1300)], 4, 480, 960).tolist()
@@ -143,23 +145,34 @@ def _id_words(concept_id: str) -> str:
 
 def default_score_concepts(spec: ConceptSpec, truth_concept: str, vocabulary: Vocabulary) -> tuple[str, ...]:
     """The vocabulary concepts that stand for a truth concept by the module's rule (may be empty)."""
-    candidates = {c: entries for c, entries in vocabulary.concepts().items() if entries[0].kind is not Kind.IGNORE}
+    candidates = {
+        c: entries for c, entries in vocabulary.concepts().items() if entries[0].kind is not Kind.IGNORE
+    }
     phrases = {k.lower() for k in spec.keywords}
     words = {k for k in phrases if " " not in k}
     chosen = [
-        c for c in candidates
+        c
+        for c in candidates
         if c == truth_concept or _id_words(c) in phrases or set(_id_words(c).split()) <= words
     ]
     if chosen:
         return tuple(chosen)
     pattern = keyword_pattern(spec.keywords)
-    hits = {c: sum(bool(pattern.search(text)) for e in entries for text in (e.phrase, e.phrase_present)) for c, entries in candidates.items()}
+    hits = {
+        c: sum(bool(pattern.search(text)) for e in entries for text in (e.phrase, e.phrase_present))
+        for c, entries in candidates.items()
+    }
     best = max(hits.values(), default=0)
     return tuple(c for c in hits if hits[c] == best)[:1] if best else ()
 
 
 def resolve_score_map(
-    concepts: Mapping[str, ConceptSpec], truth_concepts: Sequence[str], vocabulary: Vocabulary, override: Mapping[str, Sequence[str]], *, source: Path
+    concepts: Mapping[str, ConceptSpec],
+    truth_concepts: Sequence[str],
+    vocabulary: Vocabulary,
+    override: Mapping[str, Sequence[str]],
+    *,
+    source: Path,
 ) -> dict[str, tuple[str, ...]]:
     """Vocabulary concept ids per truth concept: `override` first, then the concept file, then the rule.
 
@@ -169,17 +182,31 @@ def resolve_score_map(
     known = set(vocabulary.concepts())
     mapping = {}
     for concept in truth_concepts:
-        ids = tuple(override.get(concept) or concepts[concept].score_concepts or default_score_concepts(concepts[concept], concept, vocabulary))
+        ids = tuple(
+            override.get(concept)
+            or concepts[concept].score_concepts
+            or default_score_concepts(concepts[concept], concept, vocabulary)
+        )
         if not ids:
-            raise AnnotationError(source, f"no vocabulary concept matches the keywords of {concept!r}", "name its score concepts with --score-map or `score_concepts:` in the concept file")
+            raise AnnotationError(
+                source,
+                f"no vocabulary concept matches the keywords of {concept!r}",
+                "name its score concepts with --score-map or `score_concepts:` in the concept file",
+            )
         unknown = [i for i in ids if i not in known]
         if unknown:
-            raise AnnotationError(source, f"{concept!r} names unknown vocabulary concept(s) {', '.join(unknown)}", "use concept ids of the pack's vocabulary file")
+            raise AnnotationError(
+                source,
+                f"{concept!r} names unknown vocabulary concept(s) {', '.join(unknown)}",
+                "use concept ids of the pack's vocabulary file",
+            )
         mapping[concept] = ids
     return mapping
 
 
-def separability(events: Sequence[TruthEvent], tracks: Mapping[str, SidecarScores], score_map: Mapping[str, Sequence[str]]) -> SeparabilityReport:
+def separability(
+    events: Sequence[TruthEvent], tracks: Mapping[str, SidecarScores], score_map: Mapping[str, Sequence[str]]
+) -> SeparabilityReport:
     """Per truth concept in `score_map`: AUC, AP and d' over all patches of all clips in `tracks`."""
     results = {}
     for concept, ids in score_map.items():
@@ -201,7 +228,9 @@ def separability(events: Sequence[TruthEvent], tracks: Mapping[str, SidecarScore
     mean_auc = float(np.mean([r.auc for r in defined])) if defined else None
     mean_ap = float(np.mean([r.average_precision for r in defined])) if defined else None
     balanced_d = d_prime(mean_auc) if mean_auc is not None and 0.0 < mean_auc < 1.0 else None
-    return SeparabilityReport(results, mean_auc, mean_ap, balanced_d, len(tracks), sum(t.n_patches for t in tracks.values()))
+    return SeparabilityReport(
+        results, mean_auc, mean_ap, balanced_d, len(tracks), sum(t.n_patches for t in tracks.values())
+    )
 
 
 def vocabulary_from_file(path: Path) -> Vocabulary:
@@ -213,7 +242,14 @@ def vocabulary_from_file(path: Path) -> Vocabulary:
     try:
         data = yaml.safe_load(Path(path).read_text(encoding="utf-8"))
         labels = tuple(str(label) for spec in data.values() for label in spec["classes"])
-    except (OSError, UnicodeDecodeError, yaml.YAMLError, AttributeError, KeyError, TypeError):  # let the loader name the problem
+    except (
+        OSError,
+        UnicodeDecodeError,
+        yaml.YAMLError,
+        AttributeError,
+        KeyError,
+        TypeError,
+    ):  # let the loader name the problem
         labels = ()
     return load_vocabulary(path, labels)
 
@@ -242,20 +278,33 @@ def evaluate_scores(
     concepts_file = concepts_path_for(truth_path, concepts_path)
     concepts = read_concepts(concepts_file)
     events = read_truth(truth_path, concepts)
-    others: list[Collection[str]] = [read_durations(durations_path) if durations_path else {}, read_dialogue(dialogue_path) if dialogue_path else {}]
+    others: list[Collection[str]] = [
+        read_durations(durations_path) if durations_path else {},
+        read_dialogue(dialogue_path) if dialogue_path else {},
+    ]
     tracks = {}
     for name in annotated_files(events, *others):
         path = find_sidecar(Path(captions_dir), name)
         if path is None:
-            raise AnnotationError(Path(captions_dir) / f"{name}.json", "no JSON sidecar for this annotated clip", "caption it with --events-json CAPTIONS_DIR/NAME.json")
+            raise AnnotationError(
+                Path(captions_dir) / f"{name}.json",
+                "no JSON sidecar for this annotated clip",
+                "caption it with --events-json CAPTIONS_DIR/NAME.json",
+            )
         tracks[name] = read_sidecar_scores(path)
     packs = sorted({t.pack for t in tracks.values()})
     if len(packs) != 1:
-        raise AnnotationError(captions_dir, f"sidecars of {len(packs)} model packs ({', '.join(packs)})", "evaluate each pack's sidecars in a folder of their own")
+        raise AnnotationError(
+            captions_dir,
+            f"sidecars of {len(packs)} model packs ({', '.join(packs)})",
+            "evaluate each pack's sidecars in a folder of their own",
+        )
     vocabulary = vocabulary_from_file(read_manifest(packs[0], cache).vocabulary)
     override = read_score_map(score_map_path) if score_map_path else {}
     truth_concepts = sorted({e.concept for e in events})
-    score_map = resolve_score_map(concepts, truth_concepts, vocabulary, override, source=score_map_path or concepts_file)
+    score_map = resolve_score_map(
+        concepts, truth_concepts, vocabulary, override, source=score_map_path or concepts_file
+    )
     return separability(events, tracks, score_map)
 
 
@@ -267,15 +316,44 @@ def separability_table(report: SeparabilityReport) -> str:
     """A plain-text table: one row per truth concept and the class-balanced means."""
     rows = [("concept", "positives", "AUC", "AP", "d'", "scored by")]
     for name, r in sorted(report.concepts.items()):
-        d_text = _number(r.d_prime) if r.d_prime is not None or r.auc is None else ("inf" if r.auc == 1.0 else "-inf")
-        rows.append((name, f"{r.positives}/{r.positives + r.negatives}", _number(r.auc), _number(r.average_precision), d_text, ", ".join(r.score_concepts)))
-    rows.append(("balanced mean", "", _number(report.auc), _number(report.average_precision), _number(report.d_prime), ""))
+        d_text = (
+            _number(r.d_prime)
+            if r.d_prime is not None or r.auc is None
+            else ("inf" if r.auc == 1.0 else "-inf")
+        )
+        rows.append(
+            (
+                name,
+                f"{r.positives}/{r.positives + r.negatives}",
+                _number(r.auc),
+                _number(r.average_precision),
+                d_text,
+                ", ".join(r.score_concepts),
+            )
+        )
+    rows.append(
+        (
+            "balanced mean",
+            "",
+            _number(report.auc),
+            _number(report.average_precision),
+            _number(report.d_prime),
+            "",
+        )
+    )
     widths = [max(len(row[i]) for row in rows) for i in range(len(rows[0]))]
-    lines = ["  ".join(cell.ljust(w) if i in (0, 5) else cell.rjust(w) for i, (cell, w) in enumerate(zip(row, widths))).rstrip() for row in rows]
+    lines = [
+        "  ".join(
+            cell.ljust(w) if i in (0, 5) else cell.rjust(w) for i, (cell, w) in enumerate(zip(row, widths))
+        ).rstrip()
+        for row in rows
+    ]
     rule = "-" * max(len(line) for line in lines)
     lines[1:1] = [rule]
     lines[-1:-1] = [rule]
-    lines.append(f"{report.files} file(s), {report.patches} patches; d' of the balanced mean is taken from the balanced AUC")
+    lines.append(
+        f"{report.files} file(s), {report.patches} patches; d' of the balanced mean is taken from the balanced AUC"
+    )
     return "\n".join(lines)
 
 
@@ -288,7 +366,11 @@ def separability_json(report: SeparabilityReport) -> dict[str, Any]:
     return {
         "files": report.files,
         "patches": report.patches,
-        "balanced": {"auc": rounded(report.auc), "average_precision": rounded(report.average_precision), "d_prime": rounded(report.d_prime)},
+        "balanced": {
+            "auc": rounded(report.auc),
+            "average_precision": rounded(report.average_precision),
+            "d_prime": rounded(report.d_prime),
+        },
         "concepts": {
             name: {
                 "score_concepts": list(r.score_concepts),

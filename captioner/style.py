@@ -49,7 +49,9 @@ class Detection:
     """Turning score curves into timed events."""
 
     patch_hop_ms: int = 480
-    level_spread_db: float = 6.0  # score each patch also this much quieter and louder, keep the mean (0 = once)
+    level_spread_db: float = (
+        6.0  # score each patch also this much quieter and louder, keep the mean (0 = once)
+    )
     median_ms: int = 0  # median filter on lasting sounds' score curves (0 = off)
     bridge_ms: int = 1440  # running maximum that joins flickering patches (0 = off)
     lasting_min_active_ms: int = 960  # lasting sounds need this long above onset_threshold
@@ -76,13 +78,19 @@ class Selection:
     evidence_gate: bool = True  # a sound claim needs signal energy at that time
     min_level_db: float = -55.0  # quieter than this is near-silence
     min_contrast_db: float = 6.0  # event level above the local noise floor (quietest surroundings)
-    safety_confidence: float = 0.5  # a priority-5 sound this sure needs no contrast, only signal (1 = no exemption)
+    safety_confidence: float = (
+        0.5  # a priority-5 sound this sure needs no contrast, only signal (1 = no exemption)
+    )
     parent_redundancy: bool = True  # a confident child replaces its parent (car horn > vehicle)
     child_confidence: float = 0.6  # below this a child yields to an equally sure parent
     sibling_redundancy: bool = True  # overlapping siblings are one sound: keep the surest
-    sibling_margin: float = 0.1  # siblings closer than this in score: word the sound as their parent (0 = off)
+    sibling_margin: float = (
+        0.1  # siblings closer than this in score: word the sound as their parent (0 = off)
+    )
     generic_redundancy: bool = True  # "[beeping]" is left out beside a specific sound of the same moment
-    generic_confidence: float = 0.8  # a generic sound no specific one names needs this peak score (alerts exempt; 0 = off)
+    generic_confidence: float = (
+        0.8  # a generic sound no specific one names needs this peak score (alerts exempt; 0 = off)
+    )
     music_detail_confidence: float = 0.6  # mood/genre/singing wording only above this
     music_min_ms: int = 3000  # shorter "music" is left out: usually a tonal sound, not a score (0 = off)
     dialogue_gate: bool = True
@@ -125,7 +133,13 @@ class Style:
     merge: Merge = field(default_factory=Merge)
 
 
-_SECTIONS = {"wording": Wording, "layout": Layout, "detection": Detection, "selection": Selection, "merge": Merge}
+_SECTIONS = {
+    "wording": Wording,
+    "layout": Layout,
+    "detection": Detection,
+    "selection": Selection,
+    "merge": Merge,
+}
 _RANGES: dict[str, tuple[float, float]] = {
     "music_min_ms": (0, 60000),
     "music_cooldown_ms": (0, 120000),
@@ -186,7 +200,11 @@ def load_style(name_or_path: str) -> Style:
     presets = builtin_styles()
     path = presets.get(name_or_path) or Path(name_or_path)
     if not path.is_file():
-        raise StyleError(name_or_path, "no such style", f"use one of {', '.join(sorted(presets))} or a path to a style .yaml file")
+        raise StyleError(
+            name_or_path,
+            "no such style",
+            f"use one of {', '.join(sorted(presets))} or a path to a style .yaml file",
+        )
     try:
         data = yaml.safe_load(path.read_text(encoding="utf-8"))
     except (OSError, UnicodeDecodeError) as exc:
@@ -194,19 +212,27 @@ def load_style(name_or_path: str) -> Style:
     except yaml.YAMLError as exc:
         mark = getattr(exc, "problem_mark", None)
         where = f" at line {mark.line + 1}" if mark else ""
-        raise StyleError(path, f"malformed YAML{where}", "fix the syntax (compare with a preset from `captioner styles`)") from exc
+        raise StyleError(
+            path, f"malformed YAML{where}", "fix the syntax (compare with a preset from `captioner styles`)"
+        ) from exc
     return style_from_mapping(data or {}, source=str(path), default_name=path.stem)
 
 
 def style_from_mapping(data: Any, *, source: str = "style", default_name: str = "custom") -> Style:
     """Build a validated Style from a parsed YAML mapping."""
     if not isinstance(data, dict):
-        raise StyleError(source, "a style must be a YAML mapping of sections", "see `captioner styles` for an example")
+        raise StyleError(
+            source, "a style must be a YAML mapping of sections", "see `captioner styles` for an example"
+        )
     unknown = set(data) - set(_SECTIONS) - {"name", "description"}
     if unknown:
-        raise StyleError(source, f"unknown section(s) {', '.join(sorted(unknown))}", f"use {', '.join(_SECTIONS)}")
+        raise StyleError(
+            source, f"unknown section(s) {', '.join(sorted(unknown))}", f"use {', '.join(_SECTIONS)}"
+        )
     sections = {name: _section(source, name, cls, data.get(name) or {}) for name, cls in _SECTIONS.items()}
-    style = Style(name=str(data.get("name", default_name)), description=str(data.get("description", "")), **sections)
+    style = Style(
+        name=str(data.get("name", default_name)), description=str(data.get("description", "")), **sections
+    )
     _check_consistency(source, style)
     return style
 
@@ -217,7 +243,11 @@ def _section(source: str, name: str, cls: type, values: Any) -> Any:
     hints = typing.get_type_hints(cls)
     unknown = set(values) - set(hints)
     if unknown:
-        raise StyleError(source, f"unknown field(s) {', '.join(f'{name}.{k}' for k in sorted(unknown))}", f"{name} takes {', '.join(hints)}")
+        raise StyleError(
+            source,
+            f"unknown field(s) {', '.join(f'{name}.{k}' for k in sorted(unknown))}",
+            f"{name} takes {', '.join(hints)}",
+        )
     for key, value in values.items():
         _check_value(source, f"{name}.{key}", hints[key], value)
     return cls(**values)
@@ -227,7 +257,11 @@ def _check_value(source: str, label: str, hint: Any, value: Any) -> None:
     key = label.split(".")[-1]
     if typing.get_origin(hint) is Literal:
         if value not in typing.get_args(hint):
-            raise StyleError(source, f"{label}={value!r} is not one of {', '.join(map(str, typing.get_args(hint)))}", "pick one of those")
+            raise StyleError(
+                source,
+                f"{label}={value!r} is not one of {', '.join(map(str, typing.get_args(hint)))}",
+                "pick one of those",
+            )
         return
     ok = {
         bool: isinstance(value, bool),
@@ -240,19 +274,39 @@ def _check_value(source: str, label: str, hint: Any, value: Any) -> None:
     if key in _RANGES and not isinstance(value, bool):
         low, high = _RANGES[key]
         if not low <= value <= high:
-            raise StyleError(source, f"{label}={value!r} is outside {low:g}..{high:g}", "choose a value in range")
+            raise StyleError(
+                source, f"{label}={value!r} is outside {low:g}..{high:g}", "choose a value in range"
+            )
 
 
 def _check_consistency(source: str, style: Style) -> None:
     d, layout, selection = style.detection, style.layout, style.selection
     if d.offset_threshold > d.onset_threshold:
-        raise StyleError(source, f"detection.offset_threshold={d.offset_threshold} is above onset_threshold={d.onset_threshold}", "the offset threshold must be the lower one")
+        raise StyleError(
+            source,
+            f"detection.offset_threshold={d.offset_threshold} is above onset_threshold={d.onset_threshold}",
+            "the offset threshold must be the lower one",
+        )
     if d.speech_offset > d.speech_onset:
-        raise StyleError(source, f"detection.speech_offset={d.speech_offset} is above speech_onset={d.speech_onset}", "the offset threshold must be the lower one")
+        raise StyleError(
+            source,
+            f"detection.speech_offset={d.speech_offset} is above speech_onset={d.speech_onset}",
+            "the offset threshold must be the lower one",
+        )
     if layout.min_duration_ms > layout.max_duration_ms:
-        raise StyleError(source, f"layout.min_duration_ms={layout.min_duration_ms} exceeds max_duration_ms={layout.max_duration_ms}", "make the minimum smaller")
-    if selection.gap_shift_ms > layout.sync_tolerance_ms:  # a moved sound cue would lag its sound beyond the tolerance
-        raise StyleError(source, f"selection.gap_shift_ms={selection.gap_shift_ms} exceeds layout.sync_tolerance_ms={layout.sync_tolerance_ms}", "make the gap move at most the sync tolerance")
+        raise StyleError(
+            source,
+            f"layout.min_duration_ms={layout.min_duration_ms} exceeds max_duration_ms={layout.max_duration_ms}",
+            "make the minimum smaller",
+        )
+    if (
+        selection.gap_shift_ms > layout.sync_tolerance_ms
+    ):  # a moved sound cue would lag its sound beyond the tolerance
+        raise StyleError(
+            source,
+            f"selection.gap_shift_ms={selection.gap_shift_ms} exceeds layout.sync_tolerance_ms={layout.sync_tolerance_ms}",
+            "make the gap move at most the sync tolerance",
+        )
 
 
 def replace(style: Style, section: str, **changes: Any) -> Style:

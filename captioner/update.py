@@ -37,7 +37,9 @@ from .formats import webvtt
 from .formats.subtitles import SubtitleCue, SubtitleTrack, decode_text, parse_subtitles
 
 RECORD_HEADING = "NOTE captioner record 1"
-_RECORD_LINE = re.compile(r"^(cue|gone) (\S+) (\d+:\d\d:\d\d\.\d{3}) (\d+:\d\d:\d\d\.\d{3})(?: sha256:([0-9a-f]+))?$")
+_RECORD_LINE = re.compile(
+    r"^(cue|gone) (\S+) (\d+:\d\d:\d\d\.\d{3}) (\d+:\d\d:\d\d\.\d{3})(?: sha256:([0-9a-f]+))?$"
+)
 _FINGERPRINT_HEX = 16  # 64 bits: collisions between a person's edit and the original are negligible
 
 
@@ -94,7 +96,11 @@ def fingerprint(start_ms: int, end_ms: int, text: str) -> str:
 def note_blocks(text: str) -> tuple[str, ...]:
     """The WebVTT comment blocks of a file, each as written ("NOTE ..." up to the blank line)."""
     blocks = re.split(r"\n[ \t]*\n", text.replace("\r\n", "\n").replace("\r", "\n"))
-    return tuple(block.strip("\n") for block in blocks if block.startswith("NOTE") and (len(block) == 4 or block[4] in " \t\n"))
+    return tuple(
+        block.strip("\n")
+        for block in blocks
+        if block.startswith("NOTE") and (len(block) == 4 or block[4] in " \t\n")
+    )
 
 
 def read_record(text: str) -> tuple[RecordEntry, ...] | None:
@@ -156,7 +162,9 @@ def classify(track: SubtitleTrack, record: Sequence[RecordEntry]) -> dict[str, O
     return origins
 
 
-def update_vtt(existing: Path, cues: Sequence[Cue], note: str, *, text: str | None = None) -> tuple[str, Summary]:
+def update_vtt(
+    existing: Path, cues: Sequence[Cue], note: str, *, text: str | None = None
+) -> tuple[str, Summary]:
     """The text that replaces `existing` after a new run produced `cues`.
 
     `text` is the file's content when the caller has read it already; otherwise the file is
@@ -171,10 +179,14 @@ def update_vtt(existing: Path, cues: Sequence[Cue], note: str, *, text: str | No
         text = existing_text(existing)
     if text is None:
         raise OutputError(existing, "not found", "run without --update to write it")
-    return reconcile(parse_subtitles(text, "vtt", name=str(existing)), _required_record(existing, text), cues, note)
+    return reconcile(
+        parse_subtitles(text, "vtt", name=str(existing)), _required_record(existing, text), cues, note
+    )
 
 
-def reconcile(track: SubtitleTrack, record: Sequence[RecordEntry], cues: Sequence[Cue], note: str) -> tuple[str, Summary]:
+def reconcile(
+    track: SubtitleTrack, record: Sequence[RecordEntry], cues: Sequence[Cue], note: str
+) -> tuple[str, Summary]:
     """Merge a person's file (`track` + its `record`) with a new run's machine `cues`."""
     origins = classify(track, record)
     recorded = {e.identifier: e for e in record}
@@ -213,7 +225,12 @@ def reconcile(track: SubtitleTrack, record: Sequence[RecordEntry], cues: Sequenc
 
 
 def _document(
-    fresh: Sequence[Cue], taken: set[str], kept: Sequence[SubtitleCue], header_blocks: Sequence[str], carried: Sequence[RecordEntry], note: str
+    fresh: Sequence[Cue],
+    taken: set[str],
+    kept: Sequence[SubtitleCue],
+    header_blocks: Sequence[str],
+    carried: Sequence[RecordEntry],
+    note: str,
 ) -> str:
     """Header, note, record, STYLE/REGION blocks, then all cues in time order.
 
@@ -226,13 +243,27 @@ def _document(
     for cue in fresh:
         identifier = unique_identifier(cue.event_ids[0] if cue.event_ids else "cue", taken)
         payload = webvtt.cue_payload(cue.lines)
-        timed.append((cue.start_ms, webvtt.cue_block(cue.start_ms, cue.end_ms, payload, identifier=identifier)))
-        entries.append(RecordEntry(identifier, cue.start_ms, cue.end_ms, fingerprint(cue.start_ms, cue.end_ms, payload)))
+        timed.append(
+            (cue.start_ms, webvtt.cue_block(cue.start_ms, cue.end_ms, payload, identifier=identifier))
+        )
+        entries.append(
+            RecordEntry(identifier, cue.start_ms, cue.end_ms, fingerprint(cue.start_ms, cue.end_ms, payload))
+        )
     entries.sort(key=lambda e: (e.start_ms, e.identifier))
     # A person's cue is written back exactly as read: text, identifier and settings.
-    timed += [(c.start_ms, webvtt.cue_block(c.start_ms, c.end_ms, c.text, identifier=c.identifier, settings=c.settings.strip())) for c in kept]
+    timed += [
+        (
+            c.start_ms,
+            webvtt.cue_block(
+                c.start_ms, c.end_ms, c.text, identifier=c.identifier, settings=c.settings.strip()
+            ),
+        )
+        for c in kept
+    ]
     timed.sort(key=lambda pair: pair[0])  # stable: on equal starts machine cues come first
-    return webvtt.document([block for _, block in timed], note=note, header_blocks=(record_block(entries), *header_blocks))
+    return webvtt.document(
+        [block for _, block in timed], note=note, header_blocks=(record_block(entries), *header_blocks)
+    )
 
 
 def _ms(stamp: str) -> int:
@@ -251,9 +282,15 @@ def updatable(output: Path | None, *, merge: bool) -> bool:
         SubtitleError: the file cannot be read.
     """
     if output is None:
-        raise OutputError("-o -", "--update needs a caption file to update, not standard output", "name the file with -o")
+        raise OutputError(
+            "-o -", "--update needs a caption file to update, not standard output", "name the file with -o"
+        )
     if merge:
-        raise OutputError(output, "--update does not work on merged tracks", "update the sound-cue track, then merge it again")
+        raise OutputError(
+            output,
+            "--update does not work on merged tracks",
+            "update the sound-cue track, then merge it again",
+        )
     return existing_text(output) is not None
 
 
@@ -271,7 +308,11 @@ def existing_text(output: Path) -> str | None:
     if not output.exists():
         return None
     if output.suffix.lower() != ".vtt":
-        raise OutputError(output, "--update needs the record block that only WebVTT files can hold", "caption to a .vtt file, or pass --force to replace it")
+        raise OutputError(
+            output,
+            "--update needs the record block that only WebVTT files can hold",
+            "caption to a .vtt file, or pass --force to replace it",
+        )
     try:
         raw = output.read_bytes()
     except OSError as exc:
@@ -284,5 +325,9 @@ def existing_text(output: Path) -> str | None:
 def _required_record(path: Path, text: str) -> tuple[RecordEntry, ...]:
     record = read_record(text)
     if record is None:
-        raise OutputError(path, f"has no '{RECORD_HEADING}' block, so hand edits cannot be told from machine cues", "restore that block, or pass --force to replace the file")
+        raise OutputError(
+            path,
+            f"has no '{RECORD_HEADING}' block, so hand edits cannot be told from machine cues",
+            "restore that block, or pass --force to replace the file",
+        )
     return record

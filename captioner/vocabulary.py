@@ -68,23 +68,37 @@ def load_vocabulary(path: Path, labels: tuple[str, ...]) -> Vocabulary:
     try:
         data = yaml.safe_load(Path(path).read_text(encoding="utf-8"))
     except (OSError, UnicodeDecodeError, yaml.YAMLError) as exc:
-        raise PackError(path, f"cannot read the vocabulary ({str(exc).splitlines()[0]})", "fix the file") from exc
+        raise PackError(
+            path, f"cannot read the vocabulary ({str(exc).splitlines()[0]})", "fix the file"
+        ) from exc
     if not isinstance(data, dict):
-        raise PackError(path, "the vocabulary must map concept names to entries", "see data/yamnet_vocabulary.yaml")
+        raise PackError(
+            path, "the vocabulary must map concept names to entries", "see data/yamnet_vocabulary.yaml"
+        )
     by_label: dict[str, tuple[str, dict[str, Any], list[str]]] = {}
     for concept, spec in data.items():
         if not isinstance(spec, dict) or not isinstance(spec.get("classes"), dict):
             raise PackError(path, f"concept {concept!r} needs a 'classes' mapping", "fix the entry")
         for label, wording in spec["classes"].items():
             if label in by_label:
-                raise PackError(path, f"class {label!r} is mapped twice ({by_label[label][0]} and {concept})", "keep one")
-            if not (isinstance(wording, list) and len(wording) == 2 and all(isinstance(w, str) for w in wording)):
-                raise PackError(path, f"class {label!r} needs [bracket wording, capitals wording]", "fix the entry")
+                raise PackError(
+                    path, f"class {label!r} is mapped twice ({by_label[label][0]} and {concept})", "keep one"
+                )
+            if not (
+                isinstance(wording, list) and len(wording) == 2 and all(isinstance(w, str) for w in wording)
+            ):
+                raise PackError(
+                    path, f"class {label!r} needs [bracket wording, capitals wording]", "fix the entry"
+                )
             by_label[label] = (str(concept), spec, wording)
     missing = [label for label in labels if label not in by_label]
     extra = sorted(set(by_label) - set(labels))
     if missing or extra:
-        problem = f"{len(missing)} class(es) unmapped, e.g. {missing[:3]}" if missing else f"unknown class(es) {extra[:3]}"
+        problem = (
+            f"{len(missing)} class(es) unmapped, e.g. {missing[:3]}"
+            if missing
+            else f"unknown class(es) {extra[:3]}"
+        )
         raise PackError(path, problem, "map every class of the pack exactly once")
     entries = []
     for index, label in enumerate(labels):
@@ -92,15 +106,25 @@ def load_vocabulary(path: Path, labels: tuple[str, ...]) -> Vocabulary:
         try:
             kind = Kind(spec.get("kind"))
         except ValueError as exc:
-            raise PackError(path, f"concept {concept!r} has kind={spec.get('kind')!r}", f"use one of {', '.join(k.value for k in Kind)}") from exc
+            raise PackError(
+                path,
+                f"concept {concept!r} has kind={spec.get('kind')!r}",
+                f"use one of {', '.join(k.value for k in Kind)}",
+            ) from exc
         priority = spec.get("priority", 2)
         if not isinstance(priority, int) or not 1 <= priority <= 5:
             raise PackError(path, f"concept {concept!r} has priority={priority!r}", "use a whole number 1..5")
         parent = spec.get("parent")
         if parent is not None and parent not in data:
-            raise PackError(path, f"concept {concept!r} names unknown parent {parent!r}", "add that concept or drop the parent")
+            raise PackError(
+                path,
+                f"concept {concept!r} names unknown parent {parent!r}",
+                "add that concept or drop the parent",
+            )
         generic = spec.get("generic", False)
         if not isinstance(generic, bool):
             raise PackError(path, f"concept {concept!r} has generic={generic!r}", "use true or false")
-        entries.append(ClassEntry(index, label, concept, wording[0], wording[1], kind, priority, parent, generic))
+        entries.append(
+            ClassEntry(index, label, concept, wording[0], wording[1], kind, priority, parent, generic)
+        )
     return Vocabulary(tuple(entries))

@@ -102,15 +102,34 @@ def draft(job: Job) -> Drafted:
             dialogue=dialogue_spans(track.cues) if track else None,
             dialogue_source=dialogue_name or "classifier",
         )
-        drafts = pipeline.draft_outputs(result, pack.vocabulary, job.fmt, merge_with=track, dialogue_name=dialogue_name)
+        drafts = pipeline.draft_outputs(
+            result, pack.vocabulary, job.fmt, merge_with=track, dialogue_name=dialogue_name
+        )
         texts = {"caption": drafts.track, "events": drafts.events_json()}
         if drafts.merged_text is not None:
             texts["merged"] = drafts.merged_text
-        return Drafted(job.relative, "", result.track.duration_ms, len(result.cues), texts, time.perf_counter() - began, load_s, worker, pack.manifest.version)
+        return Drafted(
+            job.relative,
+            "",
+            result.track.duration_ms,
+            len(result.cues),
+            texts,
+            time.perf_counter() - began,
+            load_s,
+            worker,
+            pack.manifest.version,
+        )
     except CaptionerError as exc:
-        return Drafted(job.relative, str(exc), caption_s=time.perf_counter() - began, load_s=load_s, worker=worker)
+        return Drafted(
+            job.relative, str(exc), caption_s=time.perf_counter() - began, load_s=load_s, worker=worker
+        )
     except Exception as exc:
-        return Drafted(job.relative, f"{job.media}: unexpected {type(exc).__name__}: {exc}; please report it", caption_s=time.perf_counter() - began, worker=worker)
+        return Drafted(
+            job.relative,
+            f"{job.media}: unexpected {type(exc).__name__}: {exc}; please report it",
+            caption_s=time.perf_counter() - began,
+            worker=worker,
+        )
 
 
 # -- executors ----------------------------------------------------------------------------------
@@ -129,7 +148,9 @@ class _Inline(Executor):
         return future
 
 
-def dispatch(jobs: list[Job], *, workers: int = 1, cluster: str | None = None) -> Generator[Drafted, None, None]:
+def dispatch(
+    jobs: list[Job], *, workers: int = 1, cluster: str | None = None
+) -> Generator[Drafted, None, None]:
     """Run the jobs and yield results as they finish, keeping only a few jobs queued
     beyond the workers, so a crashed worker process costs only the files it held."""
     if not jobs:
@@ -154,9 +175,15 @@ def dispatch(jobs: list[Job], *, workers: int = 1, cluster: str | None = None) -
                         yield future.result()
                     except BrokenProcessPool:
                         broken = True
-                        yield Drafted(job.relative, f"{job.media}: the worker process stopped while captioning it (out of memory, or a crash); run again with --retry-failed")
+                        yield Drafted(
+                            job.relative,
+                            f"{job.media}: the worker process stopped while captioning it (out of memory, or a crash); run again with --retry-failed",
+                        )
                     except Exception as exc:
-                        yield Drafted(job.relative, f"{job.media}: the worker failed ({type(exc).__name__}: {exc}); run again with --retry-failed")
+                        yield Drafted(
+                            job.relative,
+                            f"{job.media}: the worker failed ({type(exc).__name__}: {exc}); run again with --retry-failed",
+                        )
                 if broken:
                     close(interrupted=True)
                     executor, window, close = _local_executor(workers, job)
@@ -174,7 +201,12 @@ def _local_executor(workers: int, job: Job) -> tuple[Executor, int, Callable[...
     import multiprocessing
 
     # spawn: a fresh interpreter per worker, never a fork of a process holding onnxruntime threads
-    pool = ProcessPoolExecutor(workers, mp_context=multiprocessing.get_context("spawn"), initializer=_warm_worker, initargs=(job.pack, job.cache))
+    pool = ProcessPoolExecutor(
+        workers,
+        mp_context=multiprocessing.get_context("spawn"),
+        initializer=_warm_worker,
+        initargs=(job.pack, job.cache),
+    )
 
     def close(interrupted: bool) -> None:
         if interrupted:
@@ -190,12 +222,20 @@ def _dask_executor(address: str) -> tuple[Executor, int, Callable[..., None]]:
     try:
         from distributed import Client as DaskClient
     except ImportError as exc:
-        raise CaptionerError("--cluster", "needs Dask, which is not installed", "install it with: pip install 'captioner[cluster]'") from exc
+        raise CaptionerError(
+            "--cluster",
+            "needs Dask, which is not installed",
+            "install it with: pip install 'captioner[cluster]'",
+        ) from exc
     try:
         connect: Any = DaskClient  # the library is untyped
         client = connect(address, timeout=15, set_as_default=False)
     except Exception as exc:  # Dask raises OSError, TimeoutError or ValueError depending on the address
-        raise CaptionerError(address, f"no Dask scheduler answered ({exc})", "start one with `dask scheduler` or check the address (tcp://HOST:8786)") from exc
+        raise CaptionerError(
+            address,
+            f"no Dask scheduler answered ({exc})",
+            "start one with `dask scheduler` or check the address (tcp://HOST:8786)",
+        ) from exc
     threads = max(sum(client.nthreads().values()), 1)
     executor: Executor = client.get_executor(pure=False)
 

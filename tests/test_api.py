@@ -16,7 +16,9 @@ def test_all_is_sorted_and_every_name_exists() -> None:
         assert hasattr(captioner, name), name
 
 
-@pytest.mark.parametrize("module", ["features", "events", "dialogue", "policy", "cues", "report", "formats", "formats.webvtt"])
+@pytest.mark.parametrize(
+    "module", ["features", "events", "dialogue", "policy", "cues", "report", "formats", "formats.webvtt"]
+)
 def test_doctests(module: str) -> None:
     result = doctest.testmod(importlib.import_module(f"captioner.{module}"))
     assert result.attempted > 0 and result.failed == 0

@@ -80,17 +80,44 @@ def test_caption_writes_a_valid_track_and_sidecar(tmp_path: Path, pack: object) 
     parsed = webvtt.read(str(out))
     assert len(parsed) >= 1 and "beep" in parsed.captions[0].text.lower()
     assert '"events"' in sidecar.read_text()
-    assert main(["caption", str(audio), "-o", str(out), "--quiet", "--force", "--format", "srt", "-o", str(tmp_path / "b.srt")]) == 0
+    assert (
+        main(
+            [
+                "caption",
+                str(audio),
+                "-o",
+                str(out),
+                "--quiet",
+                "--force",
+                "--format",
+                "srt",
+                "-o",
+                str(tmp_path / "b.srt"),
+            ]
+        )
+        == 0
+    )
     assert (tmp_path / "b.srt").read_text().startswith("1\n00:00:0")
 
 
 def test_demo_video_yields_its_sounds_on_time(tmp_path: Path, pack: object) -> None:
     """Subprocess run of the real command on the bundled demo; expected sounds within 1 s."""
     out = tmp_path / "demo.vtt"
-    subprocess.run([sys.executable, "-m", "captioner", "caption", str(DEMO / "demo.mp4"), "-o", str(out), "--quiet"], check=True)
+    subprocess.run(
+        [sys.executable, "-m", "captioner", "caption", str(DEMO / "demo.mp4"), "-o", str(out), "--quiet"],
+        check=True,
+    )
     cues = [(c.start_in_seconds, c.end_in_seconds, c.text.lower()) for c in webvtt.read(str(out))]
     truth = list(csv.DictReader((DEMO / "truth.csv").open()))
-    words = {"doorbell": "doorbell|bell|chime", "dog": "dog|bark", "telephone": "phone|ring", "music": "music", "smoke_alarm": "alarm|beep", "siren": "siren", "glass": "glass|clink|shatter"}
+    words = {
+        "doorbell": "doorbell|bell|chime",
+        "dog": "dog|bark",
+        "telephone": "phone|ring",
+        "music": "music",
+        "smoke_alarm": "alarm|beep",
+        "siren": "siren",
+        "glass": "glass|clink|shatter",
+    }
     import re
 
     found = set()
@@ -98,7 +125,9 @@ def test_demo_video_yields_its_sounds_on_time(tmp_path: Path, pack: object) -> N
         onset, offset = float(event["onset"]), float(event["offset"])
         pattern = re.compile(rf"\b({words[event['concept']]})")
         # A cue counts when it names the sound and overlaps it widened by 1 s (cue-level collar).
-        if any(pattern.search(text) and start <= offset + 1 and end >= onset - 1 for start, end, text in cues):
+        if any(
+            pattern.search(text) and start <= offset + 1 and end >= onset - 1 for start, end, text in cues
+        ):
             found.add(event["concept"])
     assert {"dog", "telephone", "music", "smoke_alarm"} <= found, (found, cues)
 
@@ -106,7 +135,9 @@ def test_demo_video_yields_its_sounds_on_time(tmp_path: Path, pack: object) -> N
 def test_an_arrow_in_the_file_name_cannot_break_the_track(tmp_path: Path, pack: object) -> None:
     # W3C WebVTT: a NOTE block must not contain "-->"; a name like "a--->b" must not sneak one in.
     quiet = np.zeros(16000 * 2)
-    audio = write_wav(tmp_path / "a--->b.wav", np.concatenate([quiet, tone(3.0, 1000.0), quiet, tone(3.0, 1000.0), quiet]))
+    audio = write_wav(
+        tmp_path / "a--->b.wav", np.concatenate([quiet, tone(3.0, 1000.0), quiet, tone(3.0, 1000.0), quiet])
+    )
     out = tmp_path / "out.vtt"
     assert main(["caption", str(audio), "-o", str(out), "--quiet"]) == 0
     text = out.read_text()
@@ -116,19 +147,38 @@ def test_an_arrow_in_the_file_name_cannot_break_the_track(tmp_path: Path, pack: 
     assert len(webvtt.read(str(out)).captions) == len(recorded) >= 1
 
 
-def test_a_patch_hop_that_does_not_fit_the_pack_is_refused_before_decoding(tmp_path: Path, capsys: pytest.CaptureFixture[str], pack: object) -> None:
+def test_a_patch_hop_that_does_not_fit_the_pack_is_refused_before_decoding(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], pack: object
+) -> None:
     style = tmp_path / "odd.yaml"
     style.write_text("detection:\n  patch_hop_ms: 485\n")
     audio = write_wav(tmp_path / "a.wav", tone(1.0))
     assert main(["caption", str(audio), "--style", str(style), "--quiet"]) == 2
-    assert "detection.patch_hop_ms=485 is not a whole number of the model pack's 10 ms frames" in _error_line(capsys)
+    assert "detection.patch_hop_ms=485 is not a whole number of the model pack's 10 ms frames" in _error_line(
+        capsys
+    )
     assert not (tmp_path / "a.sounds.vtt").exists()
 
 
-def test_output_problems_are_found_before_any_output_is_written(tmp_path: Path, capsys: pytest.CaptureFixture[str], pack: object) -> None:
+def test_output_problems_are_found_before_any_output_is_written(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], pack: object
+) -> None:
     audio = write_wav(tmp_path / "a.wav", tone(1.0))
     out = tmp_path / "a.vtt"
-    assert main(["caption", str(audio), "-o", str(out), "--events-json", str(tmp_path / "nodir" / "a.json"), "--quiet"]) == 2
+    assert (
+        main(
+            [
+                "caption",
+                str(audio),
+                "-o",
+                str(out),
+                "--events-json",
+                str(tmp_path / "nodir" / "a.json"),
+                "--quiet",
+            ]
+        )
+        == 2
+    )
     assert "does not exist" in _error_line(capsys) and not out.exists()
     assert main(["caption", str(audio), "-o", str(out), "--events-json", str(out), "--quiet"]) == 2
     assert "is named for two outputs" in _error_line(capsys) and not out.exists()

@@ -13,8 +13,17 @@ BRACKETS = load_style("brackets")
 CAPITALS = load_style("capitals")
 
 
-def event(event_id: str, start_ms: int, end_ms: int, phrase: str = "dog barking", present: str = "dog barks", kind: Kind = Kind.TRANSIENT) -> SoundEvent:
-    return SoundEvent(event_id, "dog", "Dog", phrase, present, kind, 3, None, start_ms, end_ms, 0.9, 0.7, -20.0, -40.0)
+def event(
+    event_id: str,
+    start_ms: int,
+    end_ms: int,
+    phrase: str = "dog barking",
+    present: str = "dog barks",
+    kind: Kind = Kind.TRANSIENT,
+) -> SoundEvent:
+    return SoundEvent(
+        event_id, "dog", "Dog", phrase, present, kind, 3, None, start_ms, end_ms, 0.9, 0.7, -20.0, -40.0
+    )
 
 
 def cues_of(events: list[SoundEvent], style: Style = BRACKETS, duration_ms: int = 600_000) -> tuple:
@@ -56,7 +65,9 @@ def test_reading_rate_sets_the_floor_for_long_texts() -> None:
 
 
 def test_lines_respect_characters_per_line_and_line_count() -> None:
-    events = [event(str(i), 1000, 2000, f"very long description number {i} of a sound", "x") for i in range(3)]
+    events = [
+        event(str(i), 1000, 2000, f"very long description number {i} of a sound", "x") for i in range(3)
+    ]
     for style, chars in ((BRACKETS, 32), (CAPITALS, 37)):  # DCMP 32 (memory), BBC §3.1: 37
         cues, _ = cues_of(events, style)
         for cue in cues:
@@ -82,7 +93,10 @@ def test_cues_never_overlap_and_never_start_far_before_their_sound() -> None:
 
 
 def test_a_new_sound_ends_an_earlier_caption_that_has_been_read() -> None:
-    full = [event("a", 0, 9000, "first long line of text here", "x"), event("b", 0, 9000, "second long line of text here", "x")]
+    full = [
+        event("a", 0, 9000, "first long line of text here", "x"),
+        event("b", 0, 9000, "second long line of text here", "x"),
+    ]
     later = event("c", 3000, 4000, "door slamming", "door slams")
     cues, dropped = cues_of([*full, later])
     assert dropped == ()
@@ -92,7 +106,11 @@ def test_a_new_sound_ends_an_earlier_caption_that_has_been_read() -> None:
 
 def test_gaps_between_cues_are_closed_or_at_least_a_second() -> None:
     # BBC §4.5: no gap, or a gap of at least 1 s (the capitals preset uses min_gap_ms 1000).
-    events = [event("a", 0, 500), event("b", 1800, 2300, "cat meowing", "cat meows"), event("c", 6000, 6500, "bird singing", "bird sings")]
+    events = [
+        event("a", 0, 500),
+        event("b", 1800, 2300, "cat meowing", "cat meows"),
+        event("c", 6000, 6500, "bird singing", "bird sings"),
+    ]
     cues, _ = cues_of(events, CAPITALS)
     for earlier, later in itertools.pairwise(cues):
         gap = later.start_ms - earlier.end_ms
@@ -104,7 +122,9 @@ def test_end_cue_for_a_long_continuous_sound_only() -> None:
     cues, _ = cues_of([rain])
     assert [c.text for c in cues] == ["[rain falling]", "[rain falling stops]"]
     assert cues[1].start_ms == 40000
-    assert [c.text for c in cues_of([rain], replace(BRACKETS, "wording", end_cues=False))[0]] == ["[rain falling]"]
+    assert [c.text for c in cues_of([rain], replace(BRACKETS, "wording", end_cues=False))[0]] == [
+        "[rain falling]"
+    ]
     bark = event("d", 1000, 40000)  # a transient, however long, gets no end cue
     assert [c.text for c in cues_of([bark])[0]] == ["[dog barking]"]
 
@@ -125,7 +145,9 @@ def test_cue_identifiers_are_unique_when_a_caption_continues_beside_a_new_one() 
     from captioner.formats import WRITERS
 
     long = event("a", 0, 9000, "first long line of text here", "x")
-    new = event("b", 1800, 2800, "second long line of text", "x")  # too soon to end "a", too late to share its start
+    new = event(
+        "b", 1800, 2800, "second long line of text", "x"
+    )  # too soon to end "a", too late to share its start
     cues, dropped = cues_of([long, new])
     assert dropped == ()
     assert [c.event_ids for c in cues] == [("a",), ("b", "a")]
@@ -137,7 +159,11 @@ def test_cue_identifiers_are_unique_when_a_caption_continues_beside_a_new_one() 
 def test_a_repeated_first_id_gets_a_numbered_suffix() -> None:
     from captioner.cues import Cue, unique_ids
 
-    cues = [Cue(0, 1000, ("[x]",), ("e1",)), Cue(1000, 2000, ("[y]",), ("e1", "e2")), Cue(2000, 3000, ("[z]",), ("e1",))]
+    cues = [
+        Cue(0, 1000, ("[x]",), ("e1",)),
+        Cue(1000, 2000, ("[y]",), ("e1", "e2")),
+        Cue(2000, 3000, ("[z]",), ("e1",)),
+    ]
     assert [c.event_ids for c in unique_ids(cues)] == [("e1",), ("e1-2", "e2"), ("e1-3",)]
 
 
@@ -151,7 +177,11 @@ def test_every_writer_of_identifiers_uses_the_same_suffixes() -> None:
     from captioner.update import recorded_vtt
 
     taken = {"e1"}
-    assert [unique_identifier("e1", taken), unique_identifier("e1", taken), unique_identifier("e2", taken)] == ["e1-2", "e1-3", "e2"]
+    assert [
+        unique_identifier("e1", taken),
+        unique_identifier("e1", taken),
+        unique_identifier("e2", taken),
+    ] == ["e1-2", "e1-3", "e2"]
     assert taken == {"e1", "e1-2", "e1-3", "e2"}
     split = [Cue(0, 1000, ("[x]",), ("e1",)), Cue(1000, 2000, ("[x]",), ("e1",))]
     recorded = [c.identifier for c in webvtt.from_buffer(io.StringIO(recorded_vtt(split, "")))]

@@ -18,10 +18,14 @@ VOCAB = Vocabulary(
     (
         ClassEntry(0, "Speech", "speech", "speech", "person speaks", Kind.SPEECH, 3, None),
         ClassEntry(1, "Vehicle", "vehicle", "vehicle driving", "vehicle drives", Kind.CONTINUOUS, 3, None),
-        ClassEntry(2, "Car horn", "car_horn", "car horn honking", "car horn honks", Kind.TRANSIENT, 4, "vehicle"),
+        ClassEntry(
+            2, "Car horn", "car_horn", "car horn honking", "car horn honks", Kind.TRANSIENT, 4, "vehicle"
+        ),
         ClassEntry(3, "Telephone", "telephone", "phone ringing", "phone rings", Kind.CONTINUOUS, 4, None),
         ClassEntry(4, "Silence", "silence", "silence", "silence", Kind.IGNORE, 1, None),
-        ClassEntry(5, "Air horn", "air_horn", "air horn blaring", "air horn blares", Kind.TRANSIENT, 4, "car_horn"),
+        ClassEntry(
+            5, "Air horn", "air_horn", "air horn blaring", "air horn blares", Kind.TRANSIENT, 4, "car_horn"
+        ),
     )
 )
 SPEECH, VEHICLE, HORN, PHONE, SILENCE = 0, 1, 2, 3, 4
@@ -30,12 +34,16 @@ SPEECH, VEHICLE, HORN, PHONE, SILENCE = 0, 1, 2, 3, 4
 def make_track(n_patches: int = 40, level_db: float = -30.0) -> tuple[np.ndarray, np.ndarray]:
     """Zero scores and a flat signal level; callers fill in what the test needs."""
     duration = (n_patches - 1) * HOP + PATCH
-    return np.zeros((n_patches, len(VOCAB.entries)), np.float32), np.full(int(duration / FRAME), level_db, np.float32)
+    return np.zeros((n_patches, len(VOCAB.entries)), np.float32), np.full(
+        int(duration / FRAME), level_db, np.float32
+    )
 
 
 def track_of(scores: np.ndarray, energy: np.ndarray) -> ScoreTrack:
     duration = (scores.shape[0] - 1) * HOP + PATCH
-    return ScoreTrack(scores=scores, hop_ms=HOP, patch_ms=PATCH, energy_db=energy, frame_ms=FRAME, duration_ms=duration)
+    return ScoreTrack(
+        scores=scores, hop_ms=HOP, patch_ms=PATCH, energy_db=energy, frame_ms=FRAME, duration_ms=duration
+    )
 
 
 def events_of(track: ScoreTrack, **changes: object) -> list:
@@ -163,11 +171,19 @@ def test_noise_floor_is_the_quiet_part_of_the_surroundings_not_its_median() -> N
 
 
 def test_the_generic_flag_of_a_class_reaches_its_events() -> None:
-    vocabulary = Vocabulary((*VOCAB.entries[:5], ClassEntry(5, "Beep, bleep", "beep", "beeping", "device beeps", Kind.TRANSIENT, 2, None, True)))
+    vocabulary = Vocabulary(
+        (
+            *VOCAB.entries[:5],
+            ClassEntry(5, "Beep, bleep", "beep", "beeping", "device beeps", Kind.TRANSIENT, 2, None, True),
+        )
+    )
     scores, energy = make_track()
     scores[10:12, 5] = 0.8
     scores[20:22, HORN] = 0.8
-    found = {e.concept: e.generic for e in detect_events(track_of(scores, energy), vocabulary, Detection(bridge_ms=0))}
+    found = {
+        e.concept: e.generic
+        for e in detect_events(track_of(scores, energy), vocabulary, Detection(bridge_ms=0))
+    }
     assert found == {"beep": True, "car_horn": False}
 
 
@@ -175,7 +191,9 @@ def test_a_sound_filling_the_whole_input_has_no_background_to_compare_with() -> 
     scores, energy = make_track(n_patches=20, level_db=-15.0)
     scores[:, PHONE] = 0.9  # rings from the first patch to the last
     whole = events_of(track_of(scores, energy))
-    assert len(whole) == 1 and whole[0].floor_db == whole[0].background_db == -100.0  # unknown: only the level counts
+    assert (
+        len(whole) == 1 and whole[0].floor_db == whole[0].background_db == -100.0
+    )  # unknown: only the level counts
     scores[:, PHONE] = 0.0
     scores[5:10, PHONE] = 0.9  # a ring with quiet surroundings keeps a measured floor
     energy[:] = -50.0

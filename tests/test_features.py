@@ -12,7 +12,9 @@ from captioner.features import Frontend, PatchStream, log_mel, mel_filterbank, s
 def test_filterbank_matches_librosa_htk_without_norm() -> None:
     frontend = Frontend()
     # Reference: librosa.filters.mel with htk=True, norm=None (YAMNet's frontend definition).
-    expected = librosa.filters.mel(sr=16000, n_fft=512, n_mels=64, fmin=125.0, fmax=7500.0, htk=True, norm=None)
+    expected = librosa.filters.mel(
+        sr=16000, n_fft=512, n_mels=64, fmin=125.0, fmax=7500.0, htk=True, norm=None
+    )
     np.testing.assert_allclose(mel_filterbank(frontend), expected, atol=1e-5)
 
 
@@ -24,8 +26,14 @@ def test_log_mel_matches_librosa_stft() -> None:
     # librosa centres a 400-sample window inside the 512-point frame, which only shifts the
     # analysed samples by 56; feed it the shifted signal so both see the same samples.
     padded = np.concatenate([np.zeros(56, np.float32), samples, np.zeros(56, np.float32)])
-    spectrum = np.abs(librosa.stft(padded, n_fft=512, hop_length=160, win_length=400, window="hann", center=False))
-    reference = np.log(librosa.filters.mel(sr=16000, n_fft=512, n_mels=64, fmin=125.0, fmax=7500.0, htk=True, norm=None) @ spectrum + 0.001).T
+    spectrum = np.abs(
+        librosa.stft(padded, n_fft=512, hop_length=160, win_length=400, window="hann", center=False)
+    )
+    reference = np.log(
+        librosa.filters.mel(sr=16000, n_fft=512, n_mels=64, fmin=125.0, fmax=7500.0, htk=True, norm=None)
+        @ spectrum
+        + 0.001
+    ).T
     n = min(len(ours), len(reference))
     assert n >= 97  # 1 + (16000 - 400) // 160
     np.testing.assert_allclose(ours[:n], reference[:n], atol=2e-3)
@@ -62,12 +70,22 @@ def test_level_shift_equals_librosa_log_mel_of_the_scaled_signal(gain_db: float)
     # (a gain scales every STFT magnitude linearly, so the shifted frames must match).
     frontend = Frontend()
     rng = np.random.default_rng(3)
-    samples = (rng.normal(0, 0.05, 16000) * np.linspace(0.0, 1.0, 16000)).astype(np.float32)  # quiet start: frames near the log floor
+    samples = (rng.normal(0, 0.05, 16000) * np.linspace(0.0, 1.0, 16000)).astype(
+        np.float32
+    )  # quiet start: frames near the log floor
     scaled = samples * np.float32(10.0 ** (gain_db / 20.0))
     padded = np.concatenate([np.zeros(56, np.float32), scaled, np.zeros(56, np.float32)])
-    spectrum = np.abs(librosa.stft(padded, n_fft=512, hop_length=160, win_length=400, window="hann", center=False))
-    reference = np.log(librosa.filters.mel(sr=16000, n_fft=512, n_mels=64, fmin=125.0, fmax=7500.0, htk=True, norm=None) @ spectrum + 0.001).T
+    spectrum = np.abs(
+        librosa.stft(padded, n_fft=512, hop_length=160, win_length=400, window="hann", center=False)
+    )
+    reference = np.log(
+        librosa.filters.mel(sr=16000, n_fft=512, n_mels=64, fmin=125.0, fmax=7500.0, htk=True, norm=None)
+        @ spectrum
+        + 0.001
+    ).T
     shifted = shift_level(log_mel(samples, frontend), gain_db, frontend.log_offset)
     n = min(len(shifted), len(reference))
     np.testing.assert_allclose(shifted[:n], reference[:n], atol=5e-3)
-    assert not np.allclose(shifted, log_mel(samples, frontend), atol=0.1)  # the shift really changes the frames
+    assert not np.allclose(
+        shifted, log_mel(samples, frontend), atol=0.1
+    )  # the shift really changes the frames

@@ -62,7 +62,18 @@ def snapshot(folder: Path) -> dict[str, tuple[int, bytes]]:
 
 def test_scan_finds_media_by_extension_and_skips_hidden_and_outputs(tmp_path: Path) -> None:
     lib = tmp_path / "lib"
-    for name in ("Talk.MP4", "talk.srt", "sub/b.wav", "sub/x.mp4", "sub/x.mkv", ".hidden/c.wav", ".d.wav", "notes.txt", "Talk.sounds.vtt", "captions/e.wav"):
+    for name in (
+        "Talk.MP4",
+        "talk.srt",
+        "sub/b.wav",
+        "sub/x.mp4",
+        "sub/x.mkv",
+        ".hidden/c.wav",
+        ".d.wav",
+        "notes.txt",
+        "Talk.sounds.vtt",
+        "captions/e.wav",
+    ):
         (lib / name).parent.mkdir(parents=True, exist_ok=True)
         (lib / name).write_bytes(b"0")
     found = library.find_media(lib, output_dir=lib / "captions")
@@ -78,7 +89,13 @@ def test_scan_finds_media_by_extension_and_skips_hidden_and_outputs(tmp_path: Pa
     # x.mp4 and x.mkv share a stem: their outputs are named in full so they never collide.
     assert x_mkv.outputs["caption"].name == "x.mkv.sounds.vtt"
     beside = library.find_media(lib, fmt="srt")
-    assert [m.relative for m in beside] == ["Talk.MP4", "captions/e.wav", "sub/b.wav", "sub/x.mkv", "sub/x.mp4"]
+    assert [m.relative for m in beside] == [
+        "Talk.MP4",
+        "captions/e.wav",
+        "sub/b.wav",
+        "sub/x.mkv",
+        "sub/x.mp4",
+    ]
     assert beside[0].outputs["caption"] == (lib / "Talk.sounds.srt").absolute()
 
 
@@ -107,24 +124,44 @@ def make_library(lib: Path) -> None:
     beeps(lib / "sub" / "beeps.wav")
     write_wav(lib / "sub" / "silent.wav", np.zeros(RATE * 3))
     (lib / "corrupt.mkv").write_bytes(os.urandom(4000))
-    run_ffmpeg("-f", "lavfi", "-i", "color=c=black:s=64x64:r=5:d=3", "-c:v", "libx264", "-preset", "ultrafast", str(lib / "sub" / "picture_only.mp4"))
+    run_ffmpeg(
+        "-f",
+        "lavfi",
+        "-i",
+        "color=c=black:s=64x64:r=5:d=3",
+        "-c:v",
+        "libx264",
+        "-preset",
+        "ultrafast",
+        str(lib / "sub" / "picture_only.mp4"),
+    )
     run_ffmpeg("-f", "lavfi", "-i", "sine=f=440:d=6", "-c:a", "aac", str(lib / "whole.m4a"))
     data = (lib / "whole.m4a").read_bytes()
     (lib / "truncated.m4a").write_bytes(data[: len(data) // 3])
 
 
-def test_batch_captions_a_library_and_isolates_bad_files(tmp_path: Path, capsys: pytest.CaptureFixture[str], pack: object) -> None:
+def test_batch_captions_a_library_and_isolates_bad_files(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], pack: object
+) -> None:
     lib = tmp_path / "lib"
     make_library(lib)
     status, summary = run(lib, capsys=capsys)
     assert status == 1  # some files failed
     assert (summary["files"], summary["done"], summary["failed"], summary["skipped"]) == (7, 4, 3, 0)
     table = rows(lib)
-    assert {p for p, r in table.items() if r["status"] == "failed"} == {"corrupt.mkv", "truncated.m4a", "sub/picture_only.mp4"}
+    assert {p for p, r in table.items() if r["status"] == "failed"} == {
+        "corrupt.mkv",
+        "truncated.m4a",
+        "sub/picture_only.mp4",
+    }
     assert "no audio stream" in table["sub/picture_only.mp4"]["error"]
     assert "corrupt.mkv" in table["corrupt.mkv"]["error"]
     # Durations: the generated files' own lengths (7 s, 3 s, 6 s), the demo's from ffmpeg.
-    assert (table["sub/beeps.wav"]["duration_ms"], table["sub/silent.wav"]["duration_ms"], table["whole.m4a"]["duration_ms"]) == (7000, 3000, pytest.approx(6000, abs=50))
+    assert (
+        table["sub/beeps.wav"]["duration_ms"],
+        table["sub/silent.wav"]["duration_ms"],
+        table["whole.m4a"]["duration_ms"],
+    ) == (7000, 3000, pytest.approx(6000, abs=50))
     assert summary["media_ms"] == sum(r["duration_ms"] for r in table.values() if r["status"] == "done")
     for key in ("demo.mp4", "sub/beeps.wav", "sub/silent.wav", "whole.m4a"):
         stem = key.rsplit(".", 1)[0]
@@ -138,13 +175,18 @@ def test_batch_captions_a_library_and_isolates_bad_files(tmp_path: Path, capsys:
     assert table["demo.mp4"]["dialogue"] == "demo.vtt"
     dialogue = [(c.start, c.end, c.text) for c in webvtt.read(str(lib / "demo.vtt")).captions]
     merged = webvtt.read(str(lib / "demo.merged.vtt"))
-    assert all(any(m.start == s and m.end == e and m.text.startswith(t) for m in merged.captions) for s, e, t in dialogue)
+    assert all(
+        any(m.start == s and m.end == e and m.text.startswith(t) for m in merged.captions)
+        for s, e, t in dialogue
+    )
     assert len(merged.captions) > len(dialogue)
     assert summary["merged"] == 1
     assert not list(lib.rglob(".*.tmp"))
 
 
-def test_rerun_skips_unchanged_files_and_retries_failures_on_request(tmp_path: Path, capsys: pytest.CaptureFixture[str], pack: object) -> None:
+def test_rerun_skips_unchanged_files_and_retries_failures_on_request(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], pack: object
+) -> None:
     lib = tmp_path / "lib"
     lib.mkdir()
     beeps(lib / "a.wav")
@@ -167,13 +209,20 @@ def test_rerun_skips_unchanged_files_and_retries_failures_on_request(tmp_path: P
     assert list(srt.parse((lib / "a.sounds.srt").read_text()))  # SubRip, by the reference parser
 
 
-def test_changed_file_is_redone_and_a_hand_edit_is_kept(tmp_path: Path, capsys: pytest.CaptureFixture[str], pack: object) -> None:
+def test_changed_file_is_redone_and_a_hand_edit_is_kept(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], pack: object
+) -> None:
     lib = tmp_path / "lib"
     lib.mkdir()
     beeps(lib / "a.wav")
     beeps(lib / "b.wav", 700.0)
     run(lib, capsys=capsys)
-    edited = (lib / "a.sounds.vtt").read_text().replace("beep", "BEEP", 1).replace("\n\n", "\n\nNOTE checked by the editor\n\n", 1)
+    edited = (
+        (lib / "a.sounds.vtt")
+        .read_text()
+        .replace("beep", "BEEP", 1)
+        .replace("\n\n", "\n\nNOTE checked by the editor\n\n", 1)
+    )
     (lib / "a.sounds.vtt").write_text(edited)
     b_before = snapshot(lib)["b.sounds.vtt"]
     time.sleep(0.01)
@@ -185,7 +234,9 @@ def test_changed_file_is_redone_and_a_hand_edit_is_kept(tmp_path: Path, capsys: 
     draft = webvtt.read(str(lib / "a.sounds.vtt.new"))  # the new draft beside it, valid WebVTT
     assert len(draft.captions) == rows(lib)["a.wav"]["cues"]
     assert (lib / "a.sounds.vtt.new").read_text() != edited
-    assert json.loads(rows(lib)["a.wav"]["outputs"])["a.sounds.vtt.new"] == manifest.file_hash(lib / "a.sounds.vtt.new")
+    assert json.loads(rows(lib)["a.wav"]["outputs"])["a.sounds.vtt.new"] == manifest.file_hash(
+        lib / "a.sounds.vtt.new"
+    )
     assert snapshot(lib)["b.sounds.vtt"] == b_before
     # Outputs we wrote and nobody touched are simply replaced: no .new for them.
     assert not (lib / "a.sounds.json.new").exists()
@@ -201,7 +252,9 @@ def test_outdir_mirrors_the_library(tmp_path: Path, capsys: pytest.CaptureFixtur
     assert sorted(p.name for p in lib.rglob("*") if p.is_file()) == ["clip.wav"]  # library untouched
 
 
-def interrupted_then_resumed(lib: Path, monkeypatch: pytest.MonkeyPatch, patch: Any, check: Any = None) -> None:
+def interrupted_then_resumed(
+    lib: Path, monkeypatch: pytest.MonkeyPatch, patch: Any, check: Any = None
+) -> None:
     """Run with `patch` applied until it raises KeyboardInterrupt, `check` the state left
     behind, then run again cleanly."""
     options = library.BatchOptions(folder=lib, style=load_style("brackets"), workers=0)
@@ -217,7 +270,9 @@ def interrupted_then_resumed(lib: Path, monkeypatch: pytest.MonkeyPatch, patch: 
 
 def assert_complete(lib: Path, reference: dict[str, tuple[int, bytes]]) -> None:
     now = snapshot(lib)
-    assert {k: v[1] for k, v in now.items()} == {k: v[1] for k, v in reference.items()}  # nothing lost, nothing extra
+    assert {k: v[1] for k, v in now.items()} == {
+        k: v[1] for k, v in reference.items()
+    }  # nothing lost, nothing extra
     assert {r["status"] for r in rows(lib).values()} == {"done"}
     assert all(r["pending"] == "{}" for r in rows(lib).values())
 
@@ -235,7 +290,9 @@ def three_files(tmp_path: Path, pack: object) -> tuple[Path, dict[str, tuple[int
     return lib, snapshot(clean)
 
 
-def test_kill_between_output_write_and_manifest_update(three_files: tuple[Path, dict[str, tuple[int, bytes]]], monkeypatch: pytest.MonkeyPatch) -> None:
+def test_kill_between_output_write_and_manifest_update(
+    three_files: tuple[Path, dict[str, tuple[int, bytes]]], monkeypatch: pytest.MonkeyPatch
+) -> None:
     lib, reference = three_files
     real_save = manifest.RunManifest.save
 
@@ -247,7 +304,9 @@ def test_kill_between_output_write_and_manifest_update(three_files: tuple[Path, 
     def killed_state() -> None:
         assert rows(lib)["b.wav"]["status"] == "writing" and (lib / "b.sounds.vtt").is_file()
 
-    interrupted_then_resumed(lib, monkeypatch, lambda m: m.setattr(manifest.RunManifest, "save", save), killed_state)
+    interrupted_then_resumed(
+        lib, monkeypatch, lambda m: m.setattr(manifest.RunManifest, "save", save), killed_state
+    )
     assert_complete(lib, reference)
 
 
@@ -272,26 +331,36 @@ def test_output_left_by_a_killed_run_is_ours_even_when_the_media_then_changes(
         left.update(snapshot(lib))
         change_b()
 
-    interrupted_then_resumed(lib, monkeypatch, lambda m: m.setattr(manifest.RunManifest, "save", save), remember_then_change)
+    interrupted_then_resumed(
+        lib, monkeypatch, lambda m: m.setattr(manifest.RunManifest, "save", save), remember_then_change
+    )
     assert not list(lib.glob("*.new"))  # recognised as our own draft by its recorded pending hash
     assert (lib / "b.sounds.json").read_bytes() != left["b.sounds.json"][1]
     assert json.loads((lib / "b.sounds.json").read_text())["events"][0]["start_ms"] < 4000
 
 
-def test_kill_in_the_middle_of_writing_an_output(three_files: tuple[Path, dict[str, tuple[int, bytes]]], monkeypatch: pytest.MonkeyPatch) -> None:
+def test_kill_in_the_middle_of_writing_an_output(
+    three_files: tuple[Path, dict[str, tuple[int, bytes]]], monkeypatch: pytest.MonkeyPatch
+) -> None:
     lib, reference = three_files
     real_write = write_atomic
 
     def half_write(path: Path, text: str, *, force: bool = False) -> None:
         if path.name == "b.sounds.json":
-            (path.parent / f".{path.name}.k1ll3d.tmp").write_text(text[: len(text) // 2])  # as a kill inside write_atomic leaves it
+            (path.parent / f".{path.name}.k1ll3d.tmp").write_text(
+                text[: len(text) // 2]
+            )  # as a kill inside write_atomic leaves it
             raise KeyboardInterrupt
         real_write(path, text, force=force)
 
     def killed_state() -> None:
-        assert not (lib / "b.sounds.json").exists() and list(lib.glob(".b.sounds.json.*.tmp"))  # never a half output
+        assert not (lib / "b.sounds.json").exists() and list(
+            lib.glob(".b.sounds.json.*.tmp")
+        )  # never a half output
 
-    interrupted_then_resumed(lib, monkeypatch, lambda m: m.setattr(library, "write_atomic", half_write), killed_state)
+    interrupted_then_resumed(
+        lib, monkeypatch, lambda m: m.setattr(library, "write_atomic", half_write), killed_state
+    )
     assert_complete(lib, reference)
     assert not list(lib.glob(".*.tmp"))
 
@@ -299,16 +368,26 @@ def test_kill_in_the_middle_of_writing_an_output(three_files: tuple[Path, dict[s
 def test_sigkill_at_any_moment_then_resume(three_files: tuple[Path, dict[str, tuple[int, bytes]]]) -> None:
     """A real kill -9 of a two-worker run once its first file is recorded, then a resume."""
     lib, reference = three_files
-    process = subprocess.Popen([sys.executable, "-m", "captioner", "batch", str(lib), "--workers", "2", "--quiet"], start_new_session=True)
+    process = subprocess.Popen(
+        [sys.executable, "-m", "captioner", "batch", str(lib), "--workers", "2", "--quiet"],
+        start_new_session=True,
+    )
     deadline = time.monotonic() + 60
     while process.poll() is None and time.monotonic() < deadline:
-        if (lib / manifest.MANIFEST_NAME).exists() and any(r["status"] == "done" for r in _rows_or_empty(lib)):
+        if (lib / manifest.MANIFEST_NAME).exists() and any(
+            r["status"] == "done" for r in _rows_or_empty(lib)
+        ):
             break
         time.sleep(0.02)
     if process.poll() is None:
         os.killpg(process.pid, signal.SIGKILL)
     process.wait()
-    print("killed" if process.returncode == -signal.SIGKILL else "finished", "with", sum(r["status"] == "done" for r in _rows_or_empty(lib)), "file(s) done")
+    print(
+        "killed" if process.returncode == -signal.SIGKILL else "finished",
+        "with",
+        sum(r["status"] == "done" for r in _rows_or_empty(lib)),
+        "file(s) done",
+    )
     summary = library.run_batch(library.BatchOptions(folder=lib, style=load_style("brackets"), workers=0))
     assert summary.ok and summary.done + summary.skipped == 3 and not summary.edited
     assert_complete(lib, reference)
@@ -321,8 +400,11 @@ def _rows_or_empty(lib: Path) -> list[dict[str, Any]]:
         return []
 
 
-def test_worker_processes_and_a_dask_cluster_write_what_one_process_writes(three_files: tuple[Path, dict[str, tuple[int, bytes]]]) -> None:
+def test_worker_processes_and_a_dask_cluster_write_what_one_process_writes(
+    three_files: tuple[Path, dict[str, tuple[int, bytes]]],
+) -> None:
     import distributed  # in the test extra: a missing Dask must fail here, not skip
+
     lib, reference = three_files
     style = load_style("brackets")
     summary = library.run_batch(library.BatchOptions(folder=lib, style=style, workers=2))
@@ -333,14 +415,20 @@ def test_worker_processes_and_a_dask_cluster_write_what_one_process_writes(three
     for path in lib.glob("*.sounds.*"):
         path.unlink()
     (lib / manifest.MANIFEST_NAME).unlink()
-    with distributed.LocalCluster(n_workers=2, processes=True, threads_per_worker=1, host="127.0.0.1", dashboard_address=None) as cluster:
-        summary = library.run_batch(library.BatchOptions(folder=lib, style=style, cluster=cluster.scheduler_address))
+    with distributed.LocalCluster(
+        n_workers=2, processes=True, threads_per_worker=1, host="127.0.0.1", dashboard_address=None
+    ) as cluster:
+        summary = library.run_batch(
+            library.BatchOptions(folder=lib, style=style, cluster=cluster.scheduler_address)
+        )
     assert summary.ok and summary.done == 3 and summary.cluster == cluster.scheduler_address
     assert {k: v[1] for k, v in snapshot(lib).items()} == {k: v[1] for k, v in reference.items()}
     assert all(f":{os.getpid()}" not in r["worker"] for r in rows(lib).values())
 
 
-def test_cluster_without_dask_names_the_extra_to_install(tmp_path: Path, capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch, pack: object) -> None:
+def test_cluster_without_dask_names_the_extra_to_install(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch, pack: object
+) -> None:
     beeps(tmp_path / "a.wav")
     monkeypatch.setitem(sys.modules, "distributed", None)  # import fails as if not installed
     assert main(["batch", str(tmp_path), "--cluster", "tcp://127.0.0.1:1"]) == 2

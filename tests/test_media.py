@@ -14,7 +14,15 @@ from conftest import run_ffmpeg, tone, write_wav
 
 def _decode(path: Path, index: int | None = None, chunk_seconds: float = 60.0) -> list[np.ndarray]:
     info = media.probe(path)
-    return list(media.decode_chunks(path, info.choose_stream(index), sample_rate=16000, chunk_seconds=chunk_seconds, expected_ms=info.duration_ms))
+    return list(
+        media.decode_chunks(
+            path,
+            info.choose_stream(index),
+            sample_rate=16000,
+            chunk_seconds=chunk_seconds,
+            expected_ms=info.duration_ms,
+        )
+    )
 
 
 def test_stereo_48k_is_downmixed_and_resampled(tmp_path: Path) -> None:
@@ -45,8 +53,28 @@ def test_choose_audio_stream_of_a_video(tmp_path: Path) -> None:
     quiet = write_wav(tmp_path / "quiet.wav", np.zeros(16000))
     loud = write_wav(tmp_path / "loud.wav", tone(1.0, level=0.5))
     video = tmp_path / "two.mkv"
-    run_ffmpeg("-f", "lavfi", "-i", "color=c=black:s=64x64:d=1", "-i", str(quiet), "-i", str(loud),
-               "-map", "0:v", "-map", "1:a", "-map", "2:a", "-c:v", "mpeg4", "-c:a", "flac", "-shortest", str(video))
+    run_ffmpeg(
+        "-f",
+        "lavfi",
+        "-i",
+        "color=c=black:s=64x64:d=1",
+        "-i",
+        str(quiet),
+        "-i",
+        str(loud),
+        "-map",
+        "0:v",
+        "-map",
+        "1:a",
+        "-map",
+        "2:a",
+        "-c:v",
+        "mpeg4",
+        "-c:a",
+        "flac",
+        "-shortest",
+        str(video),
+    )
     info = media.probe(video)
     assert len(info.audio_streams) == 2
     assert np.abs(np.concatenate(_decode(video, 0))).max() < 0.01
@@ -76,7 +104,20 @@ def test_missing_and_non_media_files(tmp_path: Path) -> None:
 def test_truncated_video_is_a_clear_error(tmp_path: Path) -> None:
     source = write_wav(tmp_path / "a.wav", tone(2.0))
     video = tmp_path / "whole.mp4"
-    run_ffmpeg("-f", "lavfi", "-i", "color=c=black:s=64x64:d=2", "-i", str(source), "-c:v", "mpeg4", "-c:a", "aac", "-shortest", str(video))
+    run_ffmpeg(
+        "-f",
+        "lavfi",
+        "-i",
+        "color=c=black:s=64x64:d=2",
+        "-i",
+        str(source),
+        "-c:v",
+        "mpeg4",
+        "-c:a",
+        "aac",
+        "-shortest",
+        str(video),
+    )
     broken = tmp_path / "cut.mp4"
     broken.write_bytes(video.read_bytes()[: video.stat().st_size // 3])
     with pytest.raises(MediaError):
@@ -89,8 +130,22 @@ def _streamable_video(tmp_path: Path, seconds: int = 10) -> Path:
     """An MP4 with its index up front (+faststart), so a cut copy still opens."""
     source = write_wav(tmp_path / "long.wav", tone(float(seconds)))
     video = tmp_path / "whole.mp4"
-    run_ffmpeg("-f", "lavfi", "-i", f"color=c=black:s=64x64:d={seconds}", "-i", str(source), "-c:v", "mpeg4", "-c:a", "aac",
-               "-movflags", "+faststart", "-shortest", str(video))
+    run_ffmpeg(
+        "-f",
+        "lavfi",
+        "-i",
+        f"color=c=black:s=64x64:d={seconds}",
+        "-i",
+        str(source),
+        "-c:v",
+        "mpeg4",
+        "-c:a",
+        "aac",
+        "-movflags",
+        "+faststart",
+        "-shortest",
+        str(video),
+    )
     return video
 
 

@@ -49,7 +49,9 @@ def test_changed_pack_file_is_detected(pack: packs.LoadedPack, tmp_path: Path) -
         packs.load_pack(packs.DEFAULT_PACK, cache=tmp_path, say=lambda m: None)
 
 
-def test_offline_without_a_cached_pack_says_what_to_run(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+def test_offline_without_a_cached_pack_says_what_to_run(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
     # No package index reachable: pip fails straight away, as it does offline.
     monkeypatch.setenv("PIP_NO_INDEX", "1")
     monkeypatch.setenv("PIP_FIND_LINKS", str(tmp_path))
@@ -86,18 +88,24 @@ def test_unknown_pack_name(tmp_path: Path) -> None:
         ("source: {wheel: x.whl}\n", b"", "source must be a mapping with"),
     ],
 )
-def test_a_broken_user_pack_is_one_clear_error(tmp_path: Path, manifest: str, onnx_bytes: bytes | None, message: str) -> None:
+def test_a_broken_user_pack_is_one_clear_error(
+    tmp_path: Path, manifest: str, onnx_bytes: bytes | None, message: str
+) -> None:
     path = tmp_path / "mine.pack.yaml"
     path.write_text("name: mine\nmodel: m.onnx\nlabels: labels.csv\nvocabulary: vocab.yaml\n" + manifest)
     (tmp_path / "labels.csv").write_text("index,mid,display_name\n0,/m/x,Bark\n")
-    (tmp_path / "vocab.yaml").write_text("dog: {kind: transient, priority: 3, classes: {Bark: [dog barking, dog barks]}}\n")
+    (tmp_path / "vocab.yaml").write_text(
+        "dog: {kind: transient, priority: 3, classes: {Bark: [dog barking, dog barks]}}\n"
+    )
     if onnx_bytes is not None:
         (tmp_path / "m.onnx").write_bytes(onnx_bytes)
     with pytest.raises(PackError, match=message):
         packs.load_pack(str(path), cache=tmp_path / "cache", say=lambda m: None)
 
 
-def test_models_install_keeps_an_intact_pack_without_downloading(pack: packs.LoadedPack, monkeypatch: pytest.MonkeyPatch, capsys: pytest.CaptureFixture[str]) -> None:
+def test_models_install_keeps_an_intact_pack_without_downloading(
+    pack: packs.LoadedPack, monkeypatch: pytest.MonkeyPatch, capsys: pytest.CaptureFixture[str]
+) -> None:
     from captioner.cli import main
 
     monkeypatch.setenv("PIP_NO_INDEX", "1")  # offline: a download would fail

@@ -11,21 +11,65 @@ from captioner.style import Selection
 from captioner.vocabulary import Kind
 
 # A permissive base so that each test exercises one rule only.
-OPEN = Selection(min_confidence=0.0, min_salience=0.0, evidence_gate=False, parent_redundancy=False, sibling_redundancy=False, generic_redundancy=False,
-                 generic_confidence=0.0, dialogue_gate=False, gap_shift_ms=0, cooldown_ms=0, max_cues_per_minute=0, music_min_ms=0)
+OPEN = Selection(
+    min_confidence=0.0,
+    min_salience=0.0,
+    evidence_gate=False,
+    parent_redundancy=False,
+    sibling_redundancy=False,
+    generic_redundancy=False,
+    generic_confidence=0.0,
+    dialogue_gate=False,
+    gap_shift_ms=0,
+    cooldown_ms=0,
+    max_cues_per_minute=0,
+    music_min_ms=0,
+)
 
 
-def event(event_id: str, concept: str, start_ms: int, end_ms: int, peak: float = 0.8, *, kind: Kind = Kind.TRANSIENT, priority: int = 3,
-          parent: str | None = None, ancestors: tuple[str, ...] = (), level_db: float = -20.0, background_db: float = -40.0,
-          phrase: str | None = None, label: str | None = None) -> SoundEvent:
+def event(
+    event_id: str,
+    concept: str,
+    start_ms: int,
+    end_ms: int,
+    peak: float = 0.8,
+    *,
+    kind: Kind = Kind.TRANSIENT,
+    priority: int = 3,
+    parent: str | None = None,
+    ancestors: tuple[str, ...] = (),
+    level_db: float = -20.0,
+    background_db: float = -40.0,
+    phrase: str | None = None,
+    label: str | None = None,
+) -> SoundEvent:
     words = phrase or concept.replace("_", " ")
-    return SoundEvent(event_id, concept, label or concept, words, words, kind, priority, parent, start_ms, end_ms, peak, peak * 0.8,
-                      level_db, background_db, ancestors or ((parent,) if parent else ()))
+    return SoundEvent(
+        event_id,
+        concept,
+        label or concept,
+        words,
+        words,
+        kind,
+        priority,
+        parent,
+        start_ms,
+        end_ms,
+        peak,
+        peak * 0.8,
+        level_db,
+        background_db,
+        ancestors or ((parent,) if parent else ()),
+    )
 
 
-def run(events: list[SoundEvent], settings: Selection, dialogue: tuple[Span, ...] = ()) -> tuple[set[str], dict[str, str]]:
+def run(
+    events: list[SoundEvent], settings: Selection, dialogue: tuple[Span, ...] = ()
+) -> tuple[set[str], dict[str, str]]:
     selected = select_events(events, dialogue, settings)
-    assert [d.event_id for d in selected.decisions] == [e.event_id for e in events]  # a decision for every event, in order
+    assert [d.event_id for d in selected.decisions] == [
+        e.event_id for e in events
+    ]  # a decision for every event, in order
     return {e.event_id for e in selected.kept}, {d.event_id: d.rule for d in selected.decisions}
 
 
@@ -68,7 +112,17 @@ def test_a_confident_child_replaces_the_parent_it_covers() -> None:
 
 def test_a_grandchild_also_covers_its_grandparent() -> None:
     alarm = event("a", "alarm", 0, 5000, 0.5, kind=Kind.CONTINUOUS, priority=5)
-    police = event("p", "police_siren", 0, 5000, 0.9, kind=Kind.CONTINUOUS, priority=5, parent="siren", ancestors=("siren", "alarm"))
+    police = event(
+        "p",
+        "police_siren",
+        0,
+        5000,
+        0.9,
+        kind=Kind.CONTINUOUS,
+        priority=5,
+        parent="siren",
+        ancestors=("siren", "alarm"),
+    )
     assert run([alarm, police], replace(OPEN, parent_redundancy=True))[0] == {"p"}
 
 
@@ -87,7 +141,17 @@ def test_an_unsure_child_yields_to_an_equally_sure_parent() -> None:
 
 def test_music_takes_mood_wording_only_when_the_mood_is_confident() -> None:
     music = event("m", "music", 0, 30000, 0.9, kind=Kind.MUSIC, phrase="music")
-    happy = event("h", "music_mood", 2000, 8000, 0.8, kind=Kind.MUSIC, parent="music", phrase="upbeat music", label="Happy music")
+    happy = event(
+        "h",
+        "music_mood",
+        2000,
+        8000,
+        0.8,
+        kind=Kind.MUSIC,
+        parent="music",
+        phrase="upbeat music",
+        label="Happy music",
+    )
     settings = replace(OPEN, parent_redundancy=True, music_detail_confidence=0.6)
     selected = select_events([music, happy], (), settings)
     assert [(e.event_id, e.phrase, e.start_ms) for e in selected.kept] == [("m", "upbeat music", 0)]
@@ -107,25 +171,37 @@ def test_overlapping_siblings_are_one_sound() -> None:
 
 def test_a_sure_source_inside_a_longer_sourceless_sound_names_it() -> None:
     alarm = dataclasses.replace(event("a", "alarm", 0, 6000, 0.5, priority=4), generic=True)
-    siren = event("s", "police_siren", 1000, 2000, 0.75, priority=5, parent="siren", ancestors=("siren", "alarm"))
+    siren = event(
+        "s", "police_siren", 1000, 2000, 0.75, priority=5, parent="siren", ancestors=("siren", "alarm")
+    )
     settings = replace(OPEN, parent_redundancy=True)
     selected = select_events([alarm, siren], (), settings)
-    assert [(e.event_id, e.phrase, e.start_ms, e.end_ms, e.generic) for e in selected.kept] == [("a", "police siren", 0, 6000, False)]
+    assert [(e.event_id, e.phrase, e.start_ms, e.end_ms, e.generic) for e in selected.kept] == [
+        ("a", "police siren", 0, 6000, False)
+    ]
     assert [d.rule for d in selected.decisions] == ["kept", "parent"]
     unsure = dataclasses.replace(siren, peak_score=0.5)  # below child_confidence: both stay as they are
-    assert [(e.event_id, e.phrase) for e in select_events([alarm, unsure], (), settings).kept] == [("a", "alarm"), ("s", "police siren")]
+    assert [(e.event_id, e.phrase) for e in select_events([alarm, unsure], (), settings).kept] == [
+        ("a", "alarm"),
+        ("s", "police siren"),
+    ]
     named = dataclasses.replace(alarm, generic=False)  # a named parent is not renamed by a brief child
     assert {e.event_id for e in select_events([named, siren], (), settings).kept} == {"a", "s"}
 
 
 def test_siblings_too_close_to_tell_are_worded_as_their_parent() -> None:
-    car = dataclasses.replace(event("c", "car_alarm", 1000, 6000, 0.50, priority=5, parent="alarm"), parent_wording=("alarm blaring", "alarm blares"))
+    car = dataclasses.replace(
+        event("c", "car_alarm", 1000, 6000, 0.50, priority=5, parent="alarm"),
+        parent_wording=("alarm blaring", "alarm blares"),
+    )
     smoke = event("s", "smoke_alarm", 1000, 6000, 0.44, priority=5, parent="alarm")
     settings = replace(OPEN, sibling_redundancy=True)
     selected = select_events([car, smoke], (), settings)
     assert [(e.event_id, e.phrase) for e in selected.kept] == [("c", "alarm blaring")]
     assert "too close to tell" in selected.decisions[0].detail
-    assert [e.phrase for e in select_events([car, smoke], (), replace(settings, sibling_margin=0.0)).kept] == ["car alarm"]
+    assert [
+        e.phrase for e in select_events([car, smoke], (), replace(settings, sibling_margin=0.0)).kept
+    ] == ["car alarm"]
     sure = dataclasses.replace(car, peak_score=0.8)  # clearly the surer one: keeps its own name
     assert [e.phrase for e in select_events([sure, smoke], (), settings).kept] == ["car alarm"]
 
@@ -137,7 +213,13 @@ def test_dialogue_drops_low_priority_and_asks_more_confidence_of_the_rest() -> N
     sure_knock = event("s", "knock", 6000, 6500, 0.9, priority=4)
     music = event("m", "music", 4000, 9000, 0.75, kind=Kind.MUSIC, priority=3)
     clear = event("c", "dog", 12000, 13000, 0.4, priority=3)
-    settings = replace(OPEN, dialogue_gate=True, dialogue_min_priority=3, dialogue_confidence=0.7, dialogue_alert_confidence=0.7)
+    settings = replace(
+        OPEN,
+        dialogue_gate=True,
+        dialogue_min_priority=3,
+        dialogue_confidence=0.7,
+        dialogue_alert_confidence=0.7,
+    )
     kept, rules = run([rustle, unsure_knock, sure_knock, music, clear], settings, talk)
     assert kept == {"s", "m", "c"}
     assert rules["r"] == rules["k"] == "dialogue"
@@ -151,7 +233,10 @@ def test_a_short_event_moves_into_a_near_dialogue_gap_within_tolerance() -> None
     settings = replace(OPEN, dialogue_gate=True, dialogue_confidence=0.7, gap_shift_ms=1000)
     starts = {e.event_id: e.start_ms for e in select_events([knock, far], talk, settings).kept}
     assert starts == {"k": 5600, "f": 9200}
-    unmoved = {e.event_id: e.start_ms for e in select_events([knock, far], talk, replace(settings, gap_shift_ms=0)).kept}
+    unmoved = {
+        e.event_id: e.start_ms
+        for e in select_events([knock, far], talk, replace(settings, gap_shift_ms=0)).kept
+    }
     assert unmoved == {"k": 5000, "f": 9200}
 
 
@@ -160,7 +245,10 @@ def test_the_same_sound_within_the_cooldown_joins_the_earlier_event() -> None:
     again = event("b", "dog", 6000, 7000, 0.9)
     other = event("c", "cat", 3000, 4000)
     selected = select_events([first, other, again], (), replace(OPEN, cooldown_ms=10000))
-    assert [(e.event_id, e.start_ms, e.end_ms, e.peak_score) for e in selected.kept] == [("a", 0, 7000, 0.9), ("c", 3000, 4000, 0.8)]
+    assert [(e.event_id, e.start_ms, e.end_ms, e.peak_score) for e in selected.kept] == [
+        ("a", 0, 7000, 0.9),
+        ("c", 3000, 4000, 0.8),
+    ]
     assert {d.event_id: d.rule for d in selected.decisions}["b"] == "repeat"
     assert len(select_events([first, other, again], (), OPEN).kept) == 3
 
@@ -185,14 +273,24 @@ def test_the_evidence_gate_measures_against_the_noise_floor_not_the_dialogue() -
     # Under dialogue the median of the surroundings is the speech; the floor is its pauses.
     under_talk = replace(event("a", "dog", 0, 1000, level_db=-22.0, background_db=-20.0), floor_db=-45.0)
     over_silence = replace(event("b", "cat", 5000, 6000, level_db=-42.0, background_db=-44.0), floor_db=-45.0)
-    kept, rules = run([under_talk, over_silence], replace(OPEN, evidence_gate=True, min_contrast_db=6.0, safety_confidence=1.0))
+    kept, rules = run(
+        [under_talk, over_silence],
+        replace(OPEN, evidence_gate=True, min_contrast_db=6.0, safety_confidence=1.0),
+    )
     assert kept == {"a"} and rules["b"] == "evidence"
 
 
 def test_a_confident_safety_sound_passes_the_evidence_gate_without_contrast() -> None:
-    siren = replace(event("s", "siren", 0, 4000, 0.5, priority=5, level_db=-25.0, background_db=-24.0), floor_db=-27.0)
-    horn = replace(event("h", "car_horn", 6000, 7000, 0.9, priority=4, level_db=-25.0, background_db=-24.0), floor_db=-27.0)
-    whisper = replace(event("w", "siren", 9000, 10000, 0.9, priority=5, level_db=-70.0, background_db=-90.0), floor_db=-95.0)
+    siren = replace(
+        event("s", "siren", 0, 4000, 0.5, priority=5, level_db=-25.0, background_db=-24.0), floor_db=-27.0
+    )
+    horn = replace(
+        event("h", "car_horn", 6000, 7000, 0.9, priority=4, level_db=-25.0, background_db=-24.0),
+        floor_db=-27.0,
+    )
+    whisper = replace(
+        event("w", "siren", 9000, 10000, 0.9, priority=5, level_db=-70.0, background_db=-90.0), floor_db=-95.0
+    )
     gate = replace(OPEN, evidence_gate=True, min_contrast_db=6.0)
     kept, rules = run([siren, horn, whisper], replace(gate, safety_confidence=0.5))
     assert kept == {"s"}
@@ -218,7 +316,9 @@ def test_a_later_fragment_of_a_named_generic_sound_extends_the_specific_one() ->
     smoke = event("s", "smoke_alarm", 0, 3000, 0.5, priority=5)
     beeping = replace(event("b", "beep", 0, 3500, 0.9, priority=2), generic=True)
     more = replace(event("m", "beep", 5000, 7000, 0.9, priority=2), generic=True)
-    selected = select_events([smoke, beeping, more], (), replace(OPEN, generic_redundancy=True, cooldown_ms=6000))
+    selected = select_events(
+        [smoke, beeping, more], (), replace(OPEN, generic_redundancy=True, cooldown_ms=6000)
+    )
     assert [(e.event_id, e.start_ms, e.end_ms) for e in selected.kept] == [("s", 0, 7000)]
     assert {d.event_id: d.rule for d in selected.decisions} == {"s": "kept", "b": "generic", "m": "generic"}
 
@@ -239,7 +339,9 @@ def test_a_lone_sourceless_sound_needs_a_sure_classifier_but_an_alert_does_not()
     alarm = replace(event("x", "alarm", 30000, 33000, 0.5, priority=5, kind=Kind.CONTINUOUS), generic=True)
     dog = event("d", "dog", 40000, 41000, 0.5, parent="pet")  # names its source: not affected
     events = [animal, sure, beeping, alarm, dog]
-    kept, rules = run(events, replace(OPEN, generic_confidence=Selection().generic_confidence))  # on by default
+    kept, rules = run(
+        events, replace(OPEN, generic_confidence=Selection().generic_confidence)
+    )  # on by default
     assert kept == {"s", "x", "d"}
     assert rules["a"] == rules["b"] == "generic"
     assert run(events, OPEN)[0] == {"a", "s", "b", "x", "d"}  # 0 switches the rule off
@@ -251,14 +353,23 @@ def test_the_animal_umbrellas_are_worded_without_a_source() -> None:
 
     import yaml
 
-    data = yaml.safe_load(resources.files("captioner").joinpath("data/yamnet_vocabulary.yaml").read_text(encoding="utf-8"))
-    assert [data[c].get("generic", False) for c in ("animal", "pet", "livestock", "dog", "horse", "poultry")] == [True, True, True, False, False, False]
+    data = yaml.safe_load(
+        resources.files("captioner").joinpath("data/yamnet_vocabulary.yaml").read_text(encoding="utf-8")
+    )
+    assert [
+        data[c].get("generic", False) for c in ("animal", "pet", "livestock", "dog", "horse", "poultry")
+    ] == [True, True, True, False, False, False]
 
 
 def test_default_cooldown_joins_pauses_within_a_sound_but_not_a_new_sound() -> None:
     # Common practice (North American ring cadence, from memory): 2 s ringing, 4 s silence.
-    rings = [event(f"r{i}", "telephone", i * 6000, i * 6000 + 2000, 0.9, kind=Kind.CONTINUOUS, priority=4) for i in range(3)]
-    later = event("n", "telephone", 30000, 32000, 0.9, kind=Kind.CONTINUOUS, priority=4)  # 16 s after the last ring
+    rings = [
+        event(f"r{i}", "telephone", i * 6000, i * 6000 + 2000, 0.9, kind=Kind.CONTINUOUS, priority=4)
+        for i in range(3)
+    ]
+    later = event(
+        "n", "telephone", 30000, 32000, 0.9, kind=Kind.CONTINUOUS, priority=4
+    )  # 16 s after the last ring
     kept = select_events([*rings, later], (), replace(OPEN, cooldown_ms=Selection().cooldown_ms)).kept
     assert [(e.event_id, e.start_ms, e.end_ms) for e in kept] == [("r0", 0, 14000), ("n", 30000, 32000)]
 
@@ -270,7 +381,12 @@ def test_a_gap_move_may_not_exceed_the_sync_tolerance() -> None:
     from captioner.errors import StyleError
     from captioner.style import style_from_mapping
 
-    assert style_from_mapping({"layout": {"sync_tolerance_ms": 1500}, "selection": {"gap_shift_ms": 1500}}).selection.gap_shift_ms == 1500
+    assert (
+        style_from_mapping(
+            {"layout": {"sync_tolerance_ms": 1500}, "selection": {"gap_shift_ms": 1500}}
+        ).selection.gap_shift_ms
+        == 1500
+    )
     with pytest.raises(StyleError, match="gap_shift_ms=2000 exceeds layout.sync_tolerance_ms=1500"):
         style_from_mapping({"layout": {"sync_tolerance_ms": 1500}, "selection": {"gap_shift_ms": 2000}})
 
@@ -288,16 +404,25 @@ def test_music_that_dips_under_dialogue_is_not_announced_again() -> None:
     first = event("a", "music", 0, 10000, 0.9, kind=Kind.MUSIC)
     again = event("b", "music", 18000, 40000, 0.9, kind=Kind.MUSIC)  # 8 s later: still the same score
     rain = event("c", "rain", 0, 10000, 0.9, kind=Kind.CONTINUOUS)
-    rain_again = event("d", "rain", 18000, 30000, 0.9, kind=Kind.CONTINUOUS)  # other sounds keep the short cooldown
+    rain_again = event(
+        "d", "rain", 18000, 30000, 0.9, kind=Kind.CONTINUOUS
+    )  # other sounds keep the short cooldown
     settings = replace(OPEN, cooldown_ms=6000, music_cooldown_ms=20000)
     kept, rules = run([first, again, rain, rain_again], settings)
     assert kept == {"a", "c", "d"} and rules["b"] == "repeat"
-    assert run([first, again, rain, rain_again], replace(settings, music_cooldown_ms=0))[0] == {"a", "b", "c", "d"}
+    assert run([first, again, rain, rain_again], replace(settings, music_cooldown_ms=0))[0] == {
+        "a",
+        "b",
+        "c",
+        "d",
+    }
 
 
 def test_a_brief_mood_still_words_a_long_score() -> None:
     music = event("m", "music", 0, 30000, 0.9, kind=Kind.MUSIC, phrase="music")
-    piano = event("p", "keyboard", 2000, 3500, 0.8, kind=Kind.MUSIC, parent="music", phrase="piano music", label="Piano")
+    piano = event(
+        "p", "keyboard", 2000, 3500, 0.8, kind=Kind.MUSIC, parent="music", phrase="piano music", label="Piano"
+    )
     settings = replace(OPEN, parent_redundancy=True, music_detail_confidence=0.6, music_min_ms=3000)
     selected = select_events([music, piano], (), settings)
     assert [(e.event_id, e.phrase) for e in selected.kept] == [("m", "piano music")]
@@ -307,7 +432,13 @@ def test_attention_sounds_under_dialogue_need_less_confidence() -> None:
     talk = (Span(0, 10000),)
     knock = event("k", "knock", 3000, 3500, 0.6, priority=4)
     dog = event("d", "dog", 6000, 6500, 0.6, priority=3)
-    settings = replace(OPEN, dialogue_gate=True, dialogue_min_priority=3, dialogue_confidence=0.7, dialogue_alert_confidence=0.5)
+    settings = replace(
+        OPEN,
+        dialogue_gate=True,
+        dialogue_min_priority=3,
+        dialogue_confidence=0.7,
+        dialogue_alert_confidence=0.5,
+    )
     kept, rules = run([knock, dog], settings, talk)
     assert kept == {"k"} and rules["d"] == "dialogue"
     assert run([knock, dog], replace(settings, dialogue_alert_confidence=0.7), talk)[0] == set()

@@ -26,7 +26,10 @@ def _mean_score(track, pack: packs.LoadedPack, label: str) -> float:
     return float(track.scores[:, pack.labels.index(label)].mean())
 
 
-@pytest.mark.skipif(shutil.which("espeak-ng") is None and not os.environ.get("CI"), reason="needs espeak-ng (Debian package espeak-ng)")
+@pytest.mark.skipif(
+    shutil.which("espeak-ng") is None and not os.environ.get("CI"),
+    reason="needs espeak-ng (Debian package espeak-ng)",
+)
 def test_synthetic_speech_scores_as_speech(pack: packs.LoadedPack, tmp_path: Path) -> None:
     speech = tmp_path / "speech.wav"
     text = "The kettle is on, and the post has just arrived at the front door of the flat."
@@ -81,4 +84,6 @@ def test_level_spread_scores_are_the_mean_over_three_levels() -> None:
     expected = np.mean([_LevelMeter()(p) for p in levels], axis=0)
     np.testing.assert_allclose(mean.scores, expected, atol=1e-6)
     assert not np.allclose(mean.scores, single.scores, atol=1e-4)  # the levels did differ
-    np.testing.assert_array_equal(mean.energy_db, single.energy_db)  # level checks still use the signal as heard
+    np.testing.assert_array_equal(
+        mean.energy_db, single.energy_db
+    )  # level checks still use the signal as heard

@@ -13,10 +13,22 @@ from captioner.style import builtin_styles, load_style
 def test_presets_follow_the_published_numbers() -> None:
     brackets, capitals = load_style("brackets"), load_style("capitals")
     # DCMP Captioning Key: 32 characters per line (memory), 2 lines, 2.0 s minimum display.
-    assert (brackets.layout.max_chars_per_line, brackets.layout.max_lines, brackets.layout.min_duration_ms) == (32, 2, 2000)
+    assert (
+        brackets.layout.max_chars_per_line,
+        brackets.layout.max_lines,
+        brackets.layout.min_duration_ms,
+    ) == (32, 2, 2000)
     # BBC Subtitle Guidelines §3.1 / §3.3: 37 characters, 2 lines; §4.5: gaps none or >= 1 s.
-    assert (capitals.layout.max_chars_per_line, capitals.layout.max_lines, capitals.layout.min_gap_ms) == (37, 2, 1000)
-    assert capitals.wording.case == "upper" and not capitals.wording.brackets and capitals.wording.tense == "present"
+    assert (capitals.layout.max_chars_per_line, capitals.layout.max_lines, capitals.layout.min_gap_ms) == (
+        37,
+        2,
+        1000,
+    )
+    assert (
+        capitals.wording.case == "upper"
+        and not capitals.wording.brackets
+        and capitals.wording.tense == "present"
+    )
     assert {"brackets", "capitals"} <= set(builtin_styles())
 
 

@@ -53,7 +53,17 @@ def _rerun(text: str, cues: tuple[Cue, ...] = MACHINE) -> tuple[str, update.Summ
 def test_fingerprint_covers_times_and_text() -> None:
     base = update.fingerprint(1000, 2000, "[door slams]")
     assert base == update.fingerprint(1000, 2000, "[door slams]")
-    assert len({base, update.fingerprint(1001, 2000, "[door slams]"), update.fingerprint(1000, 1999, "[door slams]"), update.fingerprint(1000, 2000, "[door slam]")}) == 4
+    assert (
+        len(
+            {
+                base,
+                update.fingerprint(1001, 2000, "[door slams]"),
+                update.fingerprint(1000, 1999, "[door slams]"),
+                update.fingerprint(1000, 2000, "[door slam]"),
+            }
+        )
+        == 4
+    )
 
 
 def test_fresh_file_is_valid_webvtt_with_a_record_of_every_cue() -> None:
@@ -69,7 +79,10 @@ def test_fresh_file_is_valid_webvtt_with_a_record_of_every_cue() -> None:
 
 
 def test_record_block_round_trips() -> None:
-    entries = (RecordEntry("e0001", 0, 1500, "0123456789abcdef"), RecordEntry("e0007-end", 3_600_000, 3_601_000, "", gone=True))
+    entries = (
+        RecordEntry("e0001", 0, 1500, "0123456789abcdef"),
+        RecordEntry("e0007-end", 3_600_000, 3_601_000, "", gone=True),
+    )
     text = "WEBVTT\n\n" + update.record_block(entries) + "\n\n00:00.000 --> 00:01.000\nx\n"
     assert update.read_record(text) == entries
     assert update.read_record("WEBVTT\n\nNOTE something else\n") is None
@@ -83,7 +96,13 @@ def test_classify_tells_unchanged_edited_added_and_deleted() -> None:
     record = update.read_record(text)
     assert record is not None
     origins = update.classify(parse_subtitles(text, "vtt"), record)
-    assert origins == {"0": Origin.UNCHANGED, "1": Origin.EDITED, "2": Origin.UNCHANGED, "3": Origin.ADDED, "e0003": Origin.DELETED}
+    assert origins == {
+        "0": Origin.UNCHANGED,
+        "1": Origin.EDITED,
+        "2": Origin.UNCHANGED,
+        "3": Origin.ADDED,
+        "e0003": Origin.DELETED,
+    }
 
 
 def test_edits_additions_and_deletions_survive_a_rerun() -> None:
@@ -91,8 +110,14 @@ def test_edits_additions_and_deletions_survive_a_rerun() -> None:
     text = _edit(text, "[dog barking]", "[small dog yapping]")  # edited text
     text = _edit(text, "00:00:07.000 --> 00:00:08.000", "00:00:07.500 --> 00:00:08.400")  # edited times
     text = _edit(text, "e0003\n00:00:05.000 --> 00:00:06.000\n[glass breaking]\n\n", "")  # deleted
-    text += "\nmine\n00:00:09.000 --> 00:00:09.800 line:0\n<i>[hand-made]</i> &amp; more\n"  # added, with markup
-    new_run = (*MACHINE, _cue(9500, 10500, "[applause]", "e0005"), _cue(11000, 12000, "[crowd cheering]", "e0006"))
+    text += (
+        "\nmine\n00:00:09.000 --> 00:00:09.800 line:0\n<i>[hand-made]</i> &amp; more\n"  # added, with markup
+    )
+    new_run = (
+        *MACHINE,
+        _cue(9500, 10500, "[applause]", "e0005"),
+        _cue(11000, 12000, "[crowd cheering]", "e0006"),
+    )
 
     once, summary = _rerun(text, new_run)
     captions = _reference(once)
@@ -102,9 +127,16 @@ def test_edits_additions_and_deletions_survive_a_rerun() -> None:
     assert ("mine", "00:00:09.000", "00:00:09.800", "<i>[hand-made]</i> &amp; more") in shown
     assert "line:0" in once  # the person's cue settings are kept
     assert "[dog barking]" not in once and "[glass breaking]" not in once  # no machine copy comes back
-    assert ("e0006", "00:00:11.000", "00:00:12.000", "[crowd cheering]") in shown  # new cue where nobody worked
+    assert (
+        "e0006",
+        "00:00:11.000",
+        "00:00:12.000",
+        "[crowd cheering]",
+    ) in shown  # new cue where nobody worked
     assert "[applause]" not in once  # overlaps the hand-made cue
-    assert summary == update.Summary(kept_edited=2, kept_added=1, deleted=1, replaced=1, new_written=2, new_skipped=4)
+    assert summary == update.Summary(
+        kept_edited=2, kept_added=1, deleted=1, replaced=1, new_written=2, new_skipped=4
+    )
 
     twice, _ = _rerun(once, new_run)
     assert twice == once  # the deletion is remembered: a second run changes nothing
@@ -119,7 +151,9 @@ def test_unchanged_machine_cues_are_replaced_by_the_new_run() -> None:
 
 
 def test_a_moved_cue_protects_its_old_place_too() -> None:
-    text = _edit(update.recorded_vtt(MACHINE, ""), "00:00:01.000 --> 00:00:02.000", "00:00:20.000 --> 00:00:21.000")
+    text = _edit(
+        update.recorded_vtt(MACHINE, ""), "00:00:01.000 --> 00:00:02.000", "00:00:20.000 --> 00:00:21.000"
+    )
     result, _ = _rerun(text)
     starts = [c.start for c in _reference(result)]
     assert "00:00:01.000" not in starts and "00:00:20.000" in starts
@@ -171,16 +205,26 @@ def _blocks(path: Path) -> list[webvtt.Caption]:
     return list(webvtt.read(str(path)).captions)
 
 
-def test_update_keeps_hand_work_on_a_generated_track(tmp_path: Path, pack: object, capsys: pytest.CaptureFixture[str]) -> None:
+def test_update_keeps_hand_work_on_a_generated_track(
+    tmp_path: Path, pack: object, capsys: pytest.CaptureFixture[str]
+) -> None:
     out = tmp_path / "demo.vtt"
     assert main(["caption", str(DEMO), "-o", str(out), "--quiet"]) == 0
     original = out.read_text()
     cues = _blocks(out)
     assert len(cues) >= 4, original
     edited, deleted, vanished = cues[0], cues[1], cues[-1]
-    gap_start = next(c.end for c, following in itertools.pairwise(cues) if following.start_in_seconds - c.end_in_seconds >= 1)
+    gap_start = next(
+        c.end
+        for c, following in itertools.pairwise(cues)
+        if following.start_in_seconds - c.end_in_seconds >= 1
+    )
 
-    text = _edit(original, f"{edited.identifier}\n{edited.start} --> {edited.end}\n{edited.raw_text}", f"{edited.identifier}\n{edited.start} --> {edited.end}\n[chime from the hallway]")
+    text = _edit(
+        original,
+        f"{edited.identifier}\n{edited.start} --> {edited.end}\n{edited.raw_text}",
+        f"{edited.identifier}\n{edited.start} --> {edited.end}\n[chime from the hallway]",
+    )
     text = _edit(text, f"{deleted.identifier}\n{deleted.start} --> {deleted.end}\n{deleted.raw_text}\n\n", "")
     # a cue the earlier run did not write at all (neither in the file nor in its record): the new run may add it
     text = _edit(text, f"{vanished.identifier}\n{vanished.start} --> {vanished.end}\n{vanished.raw_text}", "")
@@ -200,9 +244,13 @@ def test_update_keeps_hand_work_on_a_generated_track(tmp_path: Path, pack: objec
     assert "[chime from the hallway]" in texts and edited.raw_text not in texts[:1]
     assert "[footsteps, added by hand]" in texts
     assert all((c.start, c.end) != (deleted.start, deleted.end) for c in after)  # not brought back
-    assert (vanished.identifier, vanished.start, vanished.raw_text) in [(c.identifier, c.start, c.raw_text) for c in after]
+    assert (vanished.identifier, vanished.start, vanished.raw_text) in [
+        (c.identifier, c.start, c.raw_text) for c in after
+    ]
     unchanged = cues[2]
-    assert (unchanged.identifier, unchanged.start, unchanged.raw_text) in [(c.identifier, c.start, c.raw_text) for c in after]
+    assert (unchanged.identifier, unchanged.start, unchanged.raw_text) in [
+        (c.identifier, c.start, c.raw_text) for c in after
+    ]
 
 
 def test_update_refuses_files_it_cannot_reconcile(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:

@@ -51,14 +51,20 @@ def write_atomic(path: Path, text: str, *, force: bool = False) -> None:
     """
     path = Path(path)
     if path.exists() and not force:
-        raise OutputError(path, "already exists (it may hold hand edits)", "pass --force to replace it, or choose another -o")
+        raise OutputError(
+            path,
+            "already exists (it may hold hand edits)",
+            "pass --force to replace it, or choose another -o",
+        )
     folder = path.parent if str(path.parent) else Path(".")
     if not folder.is_dir():
         raise OutputError(path, f"folder {folder} does not exist", "create it or choose another path")
     try:
         handle, temporary = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=folder)
     except OSError as exc:
-        raise OutputError(path, f"cannot write in {folder} ({exc.strerror})", "choose a writable folder") from exc
+        raise OutputError(
+            path, f"cannot write in {folder} ({exc.strerror})", "choose a writable folder"
+        ) from exc
     try:
         with os.fdopen(handle, "w", encoding="utf-8", newline="\n") as stream:
             stream.write(text)

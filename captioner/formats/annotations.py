@@ -67,8 +67,16 @@ def read_table(path: Path, columns: Sequence[str]) -> list[tuple[int, dict[str, 
     try:
         lines = path.read_text(encoding="utf-8-sig").splitlines()
     except (OSError, UnicodeDecodeError) as exc:
-        raise AnnotationError(path, f"cannot read as UTF-8 text ({exc})", f"save it as a UTF-8 CSV with columns {','.join(columns)}") from exc
-    rows = [(number, cells) for number, cells in enumerate(csv.reader(lines), start=1) if cells and any(c.strip() for c in cells) and not cells[0].lstrip().startswith("#")]
+        raise AnnotationError(
+            path,
+            f"cannot read as UTF-8 text ({exc})",
+            f"save it as a UTF-8 CSV with columns {','.join(columns)}",
+        ) from exc
+    rows = [
+        (number, cells)
+        for number, cells in enumerate(csv.reader(lines), start=1)
+        if cells and any(c.strip() for c in cells) and not cells[0].lstrip().startswith("#")
+    ]
     positions = {name: index for index, name in enumerate(columns)}
     if rows:
         header = [cell.strip().lower() for cell in rows[0][1]]
@@ -79,7 +87,9 @@ def read_table(path: Path, columns: Sequence[str]) -> list[tuple[int, dict[str, 
     table = []
     for number, cells in rows:
         if len(cells) < needed:
-            raise AnnotationError(f"{path}:{number}", f"{len(cells)} column(s), expected {','.join(columns)}", "fix the row")
+            raise AnnotationError(
+                f"{path}:{number}", f"{len(cells)} column(s), expected {','.join(columns)}", "fix the row"
+            )
         table.append((number, {name: cells[index].strip() for name, index in positions.items()}))
     return table
 
@@ -112,9 +122,17 @@ def read_truth(path: Path, concepts: Collection[str]) -> tuple[TruthEvent, ...]:
         start = _seconds_to_ms(row["onset"], where, "onset")
         end = _seconds_to_ms(row["offset"], where, "offset")
         if end <= start:
-            raise AnnotationError(where, f"offset {row['offset']} is not after onset {row['onset']}", "fix the row; an event needs a positive length")
+            raise AnnotationError(
+                where,
+                f"offset {row['offset']} is not after onset {row['onset']}",
+                "fix the row; an event needs a positive length",
+            )
         if row["concept"] not in concepts:
-            raise AnnotationError(where, f"unknown concept {row['concept']!r}", "add it with its caption keywords to the concept file, or correct the row")
+            raise AnnotationError(
+                where,
+                f"unknown concept {row['concept']!r}",
+                "add it with its caption keywords to the concept file, or correct the row",
+            )
         events.append(TruthEvent(_file_name(row["file"], where), start, end, row["concept"]))
     return tuple(events)
 
@@ -131,7 +149,9 @@ def read_dialogue(path: Path) -> dict[str, tuple[Span, ...]]:
         start = _seconds_to_ms(row["onset"], where, "onset")
         end = _seconds_to_ms(row["offset"], where, "offset")
         if end <= start:
-            raise AnnotationError(where, f"offset {row['offset']} is not after onset {row['onset']}", "fix the row")
+            raise AnnotationError(
+                where, f"offset {row['offset']} is not after onset {row['onset']}", "fix the row"
+            )
         spans.setdefault(_file_name(row["file"], where), []).append(Span(start, end))
     return {name: tuple(group) for name, group in spans.items()}
 
@@ -179,14 +199,22 @@ def read_concepts(path: Path) -> dict[str, ConceptSpec]:
     """
     data = _yaml(path)
     if not isinstance(data, dict) or not data:
-        raise AnnotationError(path, "expected a mapping of concept -> list of caption keywords", "write lines like `dog_bark: [dog, barking]`")
+        raise AnnotationError(
+            path,
+            "expected a mapping of concept -> list of caption keywords",
+            "write lines like `dog_bark: [dog, barking]`",
+        )
     concepts = {}
     for concept, value in data.items():
         spec = value if isinstance(value, dict) else {"keywords": value}
         keywords = _strings(spec.get("keywords"))
         scored = _strings(spec["score_concepts"]) if "score_concepts" in spec else ()
         if keywords is None or scored is None or set(spec) - {"keywords", "score_concepts"}:
-            raise AnnotationError(path, f"concept {concept!r} needs a non-empty keyword list (and optionally score_concepts)", "write `concept: [keyword, ...]`")
+            raise AnnotationError(
+                path,
+                f"concept {concept!r} needs a non-empty keyword list (and optionally score_concepts)",
+                "write `concept: [keyword, ...]`",
+            )
         concepts[str(concept)] = ConceptSpec(keywords, scored)
     return concepts
 
@@ -214,12 +242,20 @@ def read_caption_files(folder: Path, names: Sequence[str]) -> dict[str, Subtitle
     """
     folder = Path(folder)
     if not folder.is_dir():
-        raise SubtitleError(folder, "caption folder not found", "give the folder holding NAME.vtt or NAME.srt (or NAME.sounds.vtt/.srt) per annotated clip")
+        raise SubtitleError(
+            folder,
+            "caption folder not found",
+            "give the folder holding NAME.vtt or NAME.srt (or NAME.sounds.vtt/.srt) per annotated clip",
+        )
     tracks = {}
     for name in names:
         path = find_caption_file(folder, name)
         if path is None:
-            raise SubtitleError(folder / f"{name}.vtt", "no caption file for this annotated clip (.vtt, .srt, .sounds.vtt or .sounds.srt)", "caption the clip into this folder, or remove it from the annotation files")
+            raise SubtitleError(
+                folder / f"{name}.vtt",
+                "no caption file for this annotated clip (.vtt, .srt, .sounds.vtt or .sounds.srt)",
+                "caption the clip into this folder, or remove it from the annotation files",
+            )
         tracks[name] = read_track(path)
     return tracks
 
@@ -234,7 +270,11 @@ def concepts_path_for(truth_path: Path, concepts_path: Path | None) -> Path:
         return Path(concepts_path)
     beside = Path(truth_path).parent / CONCEPTS_BESIDE_TRUTH
     if not beside.is_file():
-        raise AnnotationError(truth_path, f"no concept file given and no {CONCEPTS_BESIDE_TRUTH} beside it", "pass --concepts CONCEPTS.yaml mapping each concept to its caption keywords")
+        raise AnnotationError(
+            truth_path,
+            f"no concept file given and no {CONCEPTS_BESIDE_TRUTH} beside it",
+            "pass --concepts CONCEPTS.yaml mapping each concept to its caption keywords",
+        )
     return beside
 
 
@@ -253,9 +293,15 @@ def read_json(path: Path) -> dict[str, Any]:
     try:
         data = json.loads(Path(path).read_text(encoding="utf-8"))
     except (OSError, UnicodeDecodeError, ValueError) as exc:
-        raise AnnotationError(path, f"not readable JSON ({str(exc).splitlines()[0] if str(exc) else type(exc).__name__})", "write it again with captioner caption --events-json") from exc
+        raise AnnotationError(
+            path,
+            f"not readable JSON ({str(exc).splitlines()[0] if str(exc) else type(exc).__name__})",
+            "write it again with captioner caption --events-json",
+        ) from exc
     if not isinstance(data, dict):
-        raise AnnotationError(path, "not a captioner JSON sidecar", "write it again with captioner caption --events-json")
+        raise AnnotationError(
+            path, "not a captioner JSON sidecar", "write it again with captioner caption --events-json"
+        )
     return data
 
 
@@ -287,12 +333,20 @@ def read_score_map(path: Path) -> dict[str, tuple[str, ...]]:
     """
     data = _yaml(path)
     if not isinstance(data, dict) or not data:
-        raise AnnotationError(path, "expected a mapping of truth concept -> vocabulary concept ids", "write lines like `dog_bark: [dog]`")
+        raise AnnotationError(
+            path,
+            "expected a mapping of truth concept -> vocabulary concept ids",
+            "write lines like `dog_bark: [dog]`",
+        )
     mapping = {}
     for concept, value in data.items():
         ids = _strings(value)
         if ids is None:
-            raise AnnotationError(path, f"concept {concept!r} needs one or more vocabulary concept ids", "write `concept: [id, ...]`")
+            raise AnnotationError(
+                path,
+                f"concept {concept!r} needs one or more vocabulary concept ids",
+                "write `concept: [id, ...]`",
+            )
         mapping[str(concept)] = ids
     return mapping
 
@@ -322,8 +376,14 @@ def read_sidecar_scores(path: Path) -> SidecarScores:
     data = read_json(path)
     section = data.get("scores")
     fix = "write it again with captioner caption --events-json"
-    if not isinstance(section, dict) or not isinstance(section.get("concepts"), dict) or not all(isinstance(section.get(k), int) and section[k] > 0 for k in ("hop_ms", "patch_ms")):
-        raise AnnotationError(path, "no score curves (a 'scores' section with hop_ms, patch_ms and concepts)", fix)
+    if (
+        not isinstance(section, dict)
+        or not isinstance(section.get("concepts"), dict)
+        or not all(isinstance(section.get(k), int) and section[k] > 0 for k in ("hop_ms", "patch_ms"))
+    ):
+        raise AnnotationError(
+            path, "no score curves (a 'scores' section with hop_ms, patch_ms and concepts)", fix
+        )
     try:
         curves = {str(c): np.asarray(v, dtype=np.float64).reshape(-1) for c, v in section["concepts"].items()}
     except (TypeError, ValueError) as exc:
@@ -333,5 +393,7 @@ def read_sidecar_scores(path: Path) -> SidecarScores:
         raise AnnotationError(path, f"score curves of different lengths {sorted(lengths)}", fix)
     duration = data.get("duration_ms")
     # with no curve at all, every concept scored ~0: count the hops that fit in the clip
-    n_patches = lengths.pop() if lengths else (duration // section["hop_ms"] if isinstance(duration, int) else 0)
+    n_patches = (
+        lengths.pop() if lengths else (duration // section["hop_ms"] if isinstance(duration, int) else 0)
+    )
     return SidecarScores(str(data.get("pack", "")), section["hop_ms"], section["patch_ms"], n_patches, curves)

@@ -28,7 +28,12 @@ from .subtitles import SubtitleCue, SubtitleFormat, SubtitleTrack, plain_lines
 
 Action = Literal["kept", "retimed", "positioned", "combined", "moved", "dropped"]
 Edge = Literal["top", "bottom"]
-_FALLBACKS = {"position": ("position", "combine", "move"), "combine": ("combine", "move"), "move": ("move",), "drop": ()}
+_FALLBACKS = {
+    "position": ("position", "combine", "move"),
+    "combine": ("combine", "move"),
+    "move": ("move",),
+    "drop": (),
+}
 _EDGE_SETTING = {"top": "line:0", "bottom": "line:-1"}  # first line from the top / last from the bottom
 _OTHER_EDGE: dict[Edge, Edge] = {"top": "bottom", "bottom": "top"}
 
@@ -73,9 +78,19 @@ class MergedTrack:
 def merge_tracks(dialogue: SubtitleTrack, sounds: Sequence[Cue], style: Style) -> MergedTrack:
     """Fold sound cues into a dialogue track; see the module notes for the rules."""
     board = _Board(dialogue, style)
-    outcomes = [board.place(piece) for cue in sorted(sounds, key=lambda c: (c.start_ms, c.end_ms)) for piece in _pieces(cue, style.layout)]
+    outcomes = [
+        board.place(piece)
+        for cue in sorted(sounds, key=lambda c: (c.start_ms, c.end_ms))
+        for piece in _pieces(cue, style.layout)
+    ]
     merged = [
-        MergedCue(d.start_ms, d.end_ms, d, tuple(line for lines, _ in board.added[i] for line in lines), tuple(x for _, ids in board.added[i] for x in ids))
+        MergedCue(
+            d.start_ms,
+            d.end_ms,
+            d,
+            tuple(line for lines, _ in board.added[i] for line in lines),
+            tuple(x for _, ids in board.added[i] for x in ids),
+        )
         for i, d in enumerate(board.dialogue)
     ]
     merged += board.placed
@@ -105,11 +120,23 @@ def dumps_merged(track: MergedTrack, note: str = "") -> str:
     blocks = []
     for cue in track.cues:
         if cue.dialogue is not None:
-            blocks.append(vtt_writer.cue_block(cue.start_ms, cue.end_ms, _payload(cue, "vtt"), identifier=cue.dialogue.identifier, settings=cue.dialogue.settings))
+            blocks.append(
+                vtt_writer.cue_block(
+                    cue.start_ms,
+                    cue.end_ms,
+                    _payload(cue, "vtt"),
+                    identifier=cue.dialogue.identifier,
+                    settings=cue.dialogue.settings,
+                )
+            )
             continue
         identifier = unique_identifier(f"sound-{cue.event_ids[0]}" if cue.event_ids else "sound", used)
         settings = _EDGE_SETTING[cue.edge] if cue.edge else ""
-        blocks.append(vtt_writer.cue_block(cue.start_ms, cue.end_ms, _payload(cue, "vtt"), identifier=identifier, settings=settings))
+        blocks.append(
+            vtt_writer.cue_block(
+                cue.start_ms, cue.end_ms, _payload(cue, "vtt"), identifier=identifier, settings=settings
+            )
+        )
     return vtt_writer.document(blocks, note=note, header_blocks=track.header_blocks)
 
 
@@ -127,8 +154,16 @@ def dropped_decisions(track: MergedTrack) -> tuple[Decision, ...]:
 def outcomes_json(track: MergedTrack) -> list[dict[str, Any]]:
     """One JSON-ready record per sound cue: original and placed times, action and reason."""
     return [
-        {"events": list(o.event_ids), "text": o.text, "start_ms": o.start_ms, "end_ms": o.end_ms, "action": o.action,
-         "placed_start_ms": o.placed_start_ms, "placed_end_ms": o.placed_end_ms, "reason": o.detail}
+        {
+            "events": list(o.event_ids),
+            "text": o.text,
+            "start_ms": o.start_ms,
+            "end_ms": o.end_ms,
+            "action": o.action,
+            "placed_start_ms": o.placed_start_ms,
+            "placed_end_ms": o.placed_end_ms,
+            "reason": o.detail,
+        }
         for o in track.outcomes
     ]
 
@@ -139,10 +174,18 @@ def merge_table(track: MergedTrack) -> str:
     rows = [header, "-" * len(header)]
     for o in track.outcomes:
         placed = "-" if o.placed_start_ms is None else vtt_writer.timestamp(o.placed_start_ms)[3:]
-        rows.append(f"{','.join(o.event_ids)[:12]:<12} {vtt_writer.timestamp(o.start_ms)[3:]:>9} {placed:>9}  {o.action:<10} {o.text[:30]} / {o.detail}")
-    counts = {action: sum(o.action == action for o in track.outcomes) for action in ("kept", "retimed", "positioned", "combined", "moved", "dropped")}
+        rows.append(
+            f"{','.join(o.event_ids)[:12]:<12} {vtt_writer.timestamp(o.start_ms)[3:]:>9} {placed:>9}  {o.action:<10} {o.text[:30]} / {o.detail}"
+        )
+    counts = {
+        action: sum(o.action == action for o in track.outcomes)
+        for action in ("kept", "retimed", "positioned", "combined", "moved", "dropped")
+    }
     dialogue = sum(c.dialogue is not None for c in track.cues)
-    rows.append(f"{dialogue} dialogue cues kept unchanged; sound cues: " + ", ".join(f"{n} {a}" for a, n in counts.items() if n))
+    rows.append(
+        f"{dialogue} dialogue cues kept unchanged; sound cues: "
+        + ", ".join(f"{n} {a}" for a, n in counts.items() if n)
+    )
     return "\n".join(rows)
 
 
@@ -189,7 +232,13 @@ def _pieces(cue: Cue, layout: Layout) -> list[_Piece]:
         return [_Piece(lines, cue.event_ids, cue.start_ms, cue.end_ms)]
     share = max((cue.end_ms - cue.start_ms) // len(chunks), 1)
     return [
-        _Piece(chunk, cue.event_ids, cue.start_ms + k * share, cue.start_ms + (k + 1) * share, f"part {k + 1} of {len(chunks)}")
+        _Piece(
+            chunk,
+            cue.event_ids,
+            cue.start_ms + k * share,
+            cue.start_ms + (k + 1) * share,
+            f"part {k + 1} of {len(chunks)}",
+        )
         for k, chunk in enumerate(chunks)
     ]
 
@@ -201,7 +250,9 @@ class _Board:
         self.track, self.style, self.layout = track, style, style.layout
         self.dialogue = sorted(track.cues, key=lambda c: (c.start_ms, c.end_ms))
         self.added: list[list[tuple[tuple[str, ...], tuple[str, ...]]]] = [[] for _ in self.dialogue]
-        self.edges: list[Edge] = [_edge(d.settings) if track.format == "vtt" else "bottom" for d in self.dialogue]
+        self.edges: list[Edge] = [
+            _edge(d.settings) if track.format == "vtt" else "bottom" for d in self.dialogue
+        ]
         self.starts = [d.start_ms for d in self.dialogue]
         self.longest = max((d.end_ms - d.start_ms for d in self.dialogue), default=0)
         self.sounds: dict[Edge, list[tuple[int, int]]] = {"top": [], "bottom": []}
@@ -218,9 +269,17 @@ class _Board:
 
     def _blockers(self, start: int, end: int, edge: Edge | None) -> list[tuple[int, int]]:
         """Intervals a sound cue at `edge` must keep clear of (None = default place: all dialogue)."""
-        wide = self.layout.sync_tolerance_ms + max(self.layout.max_duration_ms, end - start) + self.layout.min_gap_ms
+        wide = (
+            self.layout.sync_tolerance_ms
+            + max(self.layout.max_duration_ms, end - start)
+            + self.layout.min_gap_ms
+        )
         near = self._near_dialogue(start - wide, end + wide)
-        dialogue = [(self.dialogue[i].start_ms, self.dialogue[i].end_ms) for i in near if edge is None or self.edges[i] == edge]
+        dialogue = [
+            (self.dialogue[i].start_ms, self.dialogue[i].end_ms)
+            for i in near
+            if edge is None or self.edges[i] == edge
+        ]
         return dialogue + self.sounds[edge or "bottom"]
 
     def _fits(self, start: int, end: int, blockers: list[tuple[int, int]]) -> bool:
@@ -243,7 +302,10 @@ class _Board:
             ends = {start + desired, start + need}
             for a, _ in blockers:
                 ends.update((a, a - self.layout.min_gap_ms))
-            for end in sorted((e for e in ends if start + need <= e <= start + longest), key=lambda e: (abs(e - start - desired), -e)):
+            for end in sorted(
+                (e for e in ends if start + need <= e <= start + longest),
+                key=lambda e: (abs(e - start - desired), -e),
+            ):
                 if self._fits(start, end, blockers):
                     return start, end
         return None
@@ -255,16 +317,33 @@ class _Board:
         suffix = f" ({piece.part})" if piece.part else ""
 
         def outcome(action: Action, slot: tuple[int, int] | None, detail: str) -> SoundOutcome:
-            return SoundOutcome(piece.event_ids, text, piece.start_ms, piece.end_ms, action, slot[0] if slot else None, slot[1] if slot else None, detail + suffix)
+            return SoundOutcome(
+                piece.event_ids,
+                text,
+                piece.start_ms,
+                piece.end_ms,
+                action,
+                slot[0] if slot else None,
+                slot[1] if slot else None,
+                detail + suffix,
+            )
 
-        overlapping = [i for i in self._clashing(piece) if self.dialogue[i].start_ms < piece.end_ms and piece.start_ms < self.dialogue[i].end_ms]
+        overlapping = [
+            i
+            for i in self._clashing(piece)
+            if self.dialogue[i].start_ms < piece.end_ms and piece.start_ms < self.dialogue[i].end_ms
+        ]
         slot = None if overlapping else self._slot([piece.start_ms], piece, None)
         if slot is not None:
             self._put(piece, slot, None)
             if slot == (piece.start_ms, piece.end_ms):
                 return outcome("kept", slot, "clear of dialogue")
             change = "lengthened" if slot[1] > piece.end_ms else "shortened"
-            return outcome("retimed", slot, f"{change} to end at {vtt_writer.timestamp(slot[1])} for the display-time and gap limits")
+            return outcome(
+                "retimed",
+                slot,
+                f"{change} to end at {vtt_writer.timestamp(slot[1])} for the display-time and gap limits",
+            )
         reasons = [f"clashes with {self._clash_text(piece)}"]
         for strategy in _FALLBACKS[self.style.merge.strategy]:
             if strategy == "position" and self.track.format == "vtt":
@@ -279,15 +358,25 @@ class _Board:
                 if index is not None:
                     self.added[index].append((piece.lines, piece.event_ids))
                     d = self.dialogue[index]
-                    return outcome("combined", (d.start_ms, d.end_ms), f"added as a line of the dialogue cue at {vtt_writer.timestamp(d.start_ms)}")
+                    return outcome(
+                        "combined",
+                        (d.start_ms, d.end_ms),
+                        f"added as a line of the dialogue cue at {vtt_writer.timestamp(d.start_ms)}",
+                    )
                 reasons.append(why)
             elif strategy == "move":
                 slot = self._slot(self._move_starts(piece), piece, None)
                 if slot is not None:
                     self._put(piece, slot, None)
                     if slot[0] == piece.start_ms:
-                        return outcome("moved", slot, f"shortened to end at {vtt_writer.timestamp(slot[1])}, in the gap before the dialogue")
-                    return outcome("moved", slot, f"moved {slot[0] - piece.start_ms:+d} ms into a dialogue gap")
+                        return outcome(
+                            "moved",
+                            slot,
+                            f"shortened to end at {vtt_writer.timestamp(slot[1])}, in the gap before the dialogue",
+                        )
+                    return outcome(
+                        "moved", slot, f"moved {slot[0] - piece.start_ms:+d} ms into a dialogue gap"
+                    )
                 reasons.append(f"no free time within {self.layout.sync_tolerance_ms} ms")
         return outcome("dropped", None, "; ".join(reasons))
 
@@ -298,7 +387,11 @@ class _Board:
     def _clashing(self, piece: _Piece) -> list[int]:
         end = max(piece.end_ms, piece.start_ms + self.layout.min_duration_ms)
         gap = self.layout.min_gap_ms
-        return [i for i in self._near_dialogue(piece.start_ms, end) if self.dialogue[i].start_ms < end + gap and piece.start_ms - gap < self.dialogue[i].end_ms]
+        return [
+            i
+            for i in self._near_dialogue(piece.start_ms, end)
+            if self.dialogue[i].start_ms < end + gap and piece.start_ms - gap < self.dialogue[i].end_ms
+        ]
 
     def _clash_text(self, piece: _Piece) -> str:
         clashing = self._clashing(piece)
@@ -316,14 +409,25 @@ class _Board:
     def _combinable(self, piece: _Piece) -> tuple[int | None, str]:
         """The dialogue cue this sound can join as extra line(s), or why none can."""
         tolerance = self.layout.sync_tolerance_ms
-        overlapping = [i for i in self._near_dialogue(piece.start_ms, piece.end_ms) if self.dialogue[i].start_ms < piece.end_ms and piece.start_ms < self.dialogue[i].end_ms]
-        timely = sorted((i for i in overlapping if abs(self.dialogue[i].start_ms - piece.start_ms) <= tolerance), key=lambda i: abs(self.dialogue[i].start_ms - piece.start_ms))
+        overlapping = [
+            i
+            for i in self._near_dialogue(piece.start_ms, piece.end_ms)
+            if self.dialogue[i].start_ms < piece.end_ms and piece.start_ms < self.dialogue[i].end_ms
+        ]
+        timely = sorted(
+            (i for i in overlapping if abs(self.dialogue[i].start_ms - piece.start_ms) <= tolerance),
+            key=lambda i: abs(self.dialogue[i].start_ms - piece.start_ms),
+        )
         if not timely:
             return None, f"no overlapping dialogue cue starts within {tolerance} ms of it"
         why = ""
         for i in timely:
             d = self.dialogue[i]
-            lines = plain_lines(d.text, self.track.format) + tuple(x for lines, _ in self.added[i] for x in lines) + piece.lines
+            lines = (
+                plain_lines(d.text, self.track.format)
+                + tuple(x for lines, _ in self.added[i] for x in lines)
+                + piece.lines
+            )
             longest = max(len(line) for line in lines)
             read = max(self.layout.min_duration_ms, reading_ms(lines, self.layout))
             if len(lines) > self.layout.max_lines:

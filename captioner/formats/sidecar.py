@@ -34,7 +34,10 @@ def sidecar(result: Captioned, vocabulary: Vocabulary) -> dict[str, Any]:
         "pack": result.pack_name,
         "style": result.style.name,
         "duration_ms": result.track.duration_ms,
-        "dialogue": {"source": result.dialogue_source, "spans": [[s.start_ms, s.end_ms] for s in result.dialogue]},
+        "dialogue": {
+            "source": result.dialogue_source,
+            "spans": [[s.start_ms, s.end_ms] for s in result.dialogue],
+        },
         "events": [
             {
                 "id": e.event_id,
@@ -56,7 +59,10 @@ def sidecar(result: Captioned, vocabulary: Vocabulary) -> dict[str, Any]:
             }
             for e in result.events
         ],
-        "cues": [{"start_ms": c.start_ms, "end_ms": c.end_ms, "text": c.text, "events": list(c.event_ids)} for c in result.cues],
+        "cues": [
+            {"start_ms": c.start_ms, "end_ms": c.end_ms, "text": c.text, "events": list(c.event_ids)}
+            for c in result.cues
+        ],
         "scores": _curves(result, vocabulary),
     }
 

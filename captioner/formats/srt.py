@@ -31,7 +31,9 @@ def dumps_text(cues: Sequence[tuple[int, int, str]]) -> str:
     '1\\n00:00:01,000 --> 00:00:02,500\\nHello\\n[door slams]\\n\\n'
     """
     subtitles = [
-        srt_library.Subtitle(index=number, start=timedelta(milliseconds=start), end=timedelta(milliseconds=end), content=text)
+        srt_library.Subtitle(
+            index=number, start=timedelta(milliseconds=start), end=timedelta(milliseconds=end), content=text
+        )
         for number, (start, end, text) in enumerate(cues, start=1)
     ]
     return str(srt_library.compose(subtitles, reindex=False))

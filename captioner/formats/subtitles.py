@@ -72,7 +72,9 @@ def decode_text(path: Path, raw: bytes) -> str:
         try:
             return raw.decode("utf-16")
         except UnicodeDecodeError as exc:
-            raise SubtitleError(path, "starts with a UTF-16 byte-order mark but is not valid UTF-16", "save it again as UTF-8") from exc
+            raise SubtitleError(
+                path, "starts with a UTF-16 byte-order mark but is not valid UTF-16", "save it again as UTF-8"
+            ) from exc
     try:
         return raw.decode("utf-8-sig")
     except UnicodeDecodeError:
@@ -82,7 +84,10 @@ def decode_text(path: Path, raw: bytes) -> str:
             text = raw.decode(legacy)
         except UnicodeDecodeError:
             continue
-        warnings.warn(f"{path}: not UTF-8; read as {legacy}, check accented letters (save it as UTF-8 to silence this)", stacklevel=2)
+        warnings.warn(
+            f"{path}: not UTF-8; read as {legacy}, check accented letters (save it as UTF-8 to silence this)",
+            stacklevel=2,
+        )
         return text
     raise AssertionError("latin-1 decodes every byte")  # pragma: no cover
 
@@ -98,7 +103,9 @@ def subtitle_format(path: Path) -> SubtitleFormat:
         return "vtt"
     if suffix == ".srt":
         return "srt"
-    raise SubtitleError(path, f"unknown subtitle type {suffix or '(no extension)'}", "use a .vtt or .srt file")
+    raise SubtitleError(
+        path, f"unknown subtitle type {suffix or '(no extension)'}", "use a .vtt or .srt file"
+    )
 
 
 def read_track(path: Path) -> SubtitleTrack:
@@ -134,9 +141,11 @@ def parse_subtitles(text: str, fmt: SubtitleFormat, *, name: str = "subtitles") 
             and the line.
     """
     text = text.lstrip("\ufeff")
-    cues, header = (_parse_vtt(name, text) if fmt == "vtt" else (_parse_srt(name, text), ()))
+    cues, header = _parse_vtt(name, text) if fmt == "vtt" else (_parse_srt(name, text), ())
     lines = _vtt_timing_lines(text) if fmt == "vtt" else _srt_timing_lines(text, cues)
-    cues = [replace(cue, location=_where(name, lines[n] if n < len(lines) else 0)) for n, cue in enumerate(cues)]
+    cues = [
+        replace(cue, location=_where(name, lines[n] if n < len(lines) else 0)) for n, cue in enumerate(cues)
+    ]
     for cue in cues:
         if cue.end_ms < cue.start_ms:
             raise SubtitleError(cue.location, "cue ends before or when it starts", _FIX)
@@ -227,10 +236,14 @@ def _parse_vtt(name: str, text: str) -> tuple[list[SubtitleCue], tuple[str, ...]
         line, problem = _locate_vtt_error(text)
         raise SubtitleError(_where(name, line), problem, _FIX) from exc
     cues = [
-        SubtitleCue(_stamp_ms(c.start_time), _stamp_ms(c.end_time), c.raw_text, c.identifier or "", str(c.settings))
+        SubtitleCue(
+            _stamp_ms(c.start_time), _stamp_ms(c.end_time), c.raw_text, c.identifier or "", str(c.settings)
+        )
         for c in document.captions
     ]
-    header = tuple("STYLE\n" + s.text for s in document.styles) + tuple("REGION\n" + "\n".join(r) for r in document.regions)
+    header = tuple("STYLE\n" + s.text for s in document.styles) + tuple(
+        "REGION\n" + "\n".join(r) for r in document.regions
+    )
     return cues, header
 
 
@@ -268,7 +281,10 @@ def _locate_vtt_error(text: str) -> tuple[int, str]:
     if len(arrows) > 1:
         return first + arrows[1] + 1, "cue timing line without a blank line before it"
     arrow = arrows[0]
-    return first + arrow + 1, f"not a valid WebVTT cue ({block[arrow].strip()[:60]!r}: check timestamps hh:mm:ss.ttt and cue settings)"
+    return (
+        first + arrow + 1,
+        f"not a valid WebVTT cue ({block[arrow].strip()[:60]!r}: check timestamps hh:mm:ss.ttt and cue settings)",
+    )
 
 
 def _parse_srt(name: str, text: str) -> list[SubtitleCue]:
@@ -278,7 +294,9 @@ def _parse_srt(name: str, text: str) -> list[SubtitleCue]:
         skipped = len(exc.unmatched_content) - len(exc.unmatched_content.lstrip())
         line = text[: exc.expected_start + skipped].count("\n") + 1
         snippet = exc.unmatched_content.strip().splitlines()[0][:60] if exc.unmatched_content.strip() else ""
-        raise SubtitleError(_where(name, line), f"not valid SRT ({snippet!r} is not a subtitle block)", _FIX) from exc
+        raise SubtitleError(
+            _where(name, line), f"not valid SRT ({snippet!r} is not a subtitle block)", _FIX
+        ) from exc
     except ValueError as exc:  # srt.TimestampParseError: a timestamp with impossible fields
         stamp = str(exc).rpartition(": ")[2]
         line = next((n for n, row in enumerate(text.splitlines(), start=1) if stamp and stamp in row), 0)

@@ -79,5 +79,10 @@ def document(blocks: Sequence[str], *, note: str = "", header_blocks: Sequence[s
 
 def dumps(cues: Sequence[Cue], note: str = "") -> str:
     """The whole WebVTT file as text; `note` becomes a NOTE block after the header."""
-    blocks = [cue_block(c.start_ms, c.end_ms, cue_payload(c.lines), identifier=c.event_ids[0] if c.event_ids else "") for c in cues]
+    blocks = [
+        cue_block(
+            c.start_ms, c.end_ms, cue_payload(c.lines), identifier=c.event_ids[0] if c.event_ids else ""
+        )
+        for c in cues
+    ]
     return document(blocks, note=note)

@@ -56,7 +56,19 @@ def run_batch(library: Path, output: Path, workers: int) -> tuple[float, float, 
     cpu = _children_cpu()
     began = time.perf_counter()
     done = subprocess.run(
-        [sys.executable, "-m", "captioner", "batch", str(library), "-o", str(output), "--workers", str(workers), "--json", "--quiet"],
+        [
+            sys.executable,
+            "-m",
+            "captioner",
+            "batch",
+            str(library),
+            "-o",
+            str(output),
+            "--workers",
+            str(workers),
+            "--json",
+            "--quiet",
+        ],
         capture_output=True,
         text=True,
     )
@@ -90,12 +102,19 @@ def uptime() -> str:
 
 
 def main() -> None:
-    parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    parser = argparse.ArgumentParser(
+        description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter
+    )
     parser.add_argument("--files", type=int, default=8, help="files in the throughput library")
     parser.add_argument("--minutes", type=int, default=3, help="length of each of those files")
     parser.add_argument("--tiny", type=int, default=24, help="1-second files in the overhead library")
     parser.add_argument("--workers", type=int, nargs="+", default=[1, 2])
-    parser.add_argument("--repeat", type=int, default=3, help="runs per measurement, alternating worker counts; the fastest is kept")
+    parser.add_argument(
+        "--repeat",
+        type=int,
+        default=3,
+        help="runs per measurement, alternating worker counts; the fastest is kept",
+    )
     parser.add_argument("--workdir", type=Path, default=Path(tempfile.gettempdir()) / "captioner-batch-bench")
     args = parser.parse_args()
     work = args.workdir
@@ -106,17 +125,36 @@ def main() -> None:
         from captioner import media
 
         subprocess.run(
-            [media.ffmpeg_executable(), "-v", "error", "-y", "-nostdin", "-f", "lavfi", "-i", "anoisesrc=d=1:c=pink:a=0.1:r=44100", "-c:a", "aac", str(tiny)],
+            [
+                media.ffmpeg_executable(),
+                "-v",
+                "error",
+                "-y",
+                "-nostdin",
+                "-f",
+                "lavfi",
+                "-i",
+                "anoisesrc=d=1:c=pink:a=0.1:r=44100",
+                "-c:a",
+                "aac",
+                str(tiny),
+            ],
             check=True,
         )
     big = build_library(work / "library", source, args.files)
     many = build_library(work / "tiny-many", tiny, args.tiny)
     one = build_library(work / "tiny-one", tiny, 1)
 
-    print(f"machine: {platform.machine()}, {os.cpu_count()} cores, Python {platform.python_version()}; load average before: {uptime()}")
+    print(
+        f"machine: {platform.machine()}, {os.cpu_count()} cores, Python {platform.python_version()}; load average before: {uptime()}"
+    )
     audio_hours = args.files * args.minutes / 60
-    print(f"\nlibrary: {args.files} files x {args.minutes} min AAC-in-MP4 = {audio_hours * 60:.0f} min of audio\n")
-    print("| workers | wall s (whole command) | audio h per wall h | speed-up | CPU s | cores busy | model load s per worker |")
+    print(
+        f"\nlibrary: {args.files} files x {args.minutes} min AAC-in-MP4 = {audio_hours * 60:.0f} min of audio\n"
+    )
+    print(
+        "| workers | wall s (whole command) | audio h per wall h | speed-up | CPU s | cores busy | model load s per worker |"
+    )
     print("|---|---|---|---|---|---|---|")
     best: dict[int, tuple[float, float]] = {}
     for _ in range(args.repeat):  # alternate, so a burst of other load hits both alike
@@ -131,15 +169,22 @@ def main() -> None:
         base = base or rate
         loads = load_seconds(work / f"out-{workers}")
         load = f"{sum(loads) / len(loads):.2f}" if loads else "-"
-        print(f"| {workers} | {wall:.1f} | {rate:.0f} | {rate / base:.2f}x | {cpu:.1f} | {cpu / wall:.2f} | {load} |", flush=True)
+        print(
+            f"| {workers} | {wall:.1f} | {rate:.0f} | {rate / base:.2f}x | {cpu:.1f} | {cpu / wall:.2f} | {load} |",
+            flush=True,
+        )
 
     print(f"\noverhead: libraries of 1 and {args.tiny} one-second AAC files\n")
-    print("| workers | startup s (1 file, whole command) | wall s for the library | overhead s per extra file |")
+    print(
+        "| workers | startup s (1 file, whole command) | wall s for the library | overhead s per extra file |"
+    )
     print("|---|---|---|---|")
     for workers in args.workers:
         start = min(run_batch(one, work / f"tiny-one-out-{workers}", workers)[0] for _ in range(args.repeat))
         wall = min(run_batch(many, work / f"tiny-many-out-{workers}", workers)[0] for _ in range(args.repeat))
-        print(f"| {workers} | {start:.2f} | {wall:.2f} | {(wall - start) / (args.tiny - 1):.3f} |", flush=True)
+        print(
+            f"| {workers} | {start:.2f} | {wall:.2f} | {(wall - start) / (args.tiny - 1):.3f} |", flush=True
+        )
     print(f"\nload average after: {uptime()}")
 
 

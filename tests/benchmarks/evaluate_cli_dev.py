@@ -25,24 +25,50 @@ CAPTIONER = [sys.executable, "-m", "captioner"]
 
 
 def run(arguments: list[str]) -> None:
-    subprocess.run(CAPTIONER + arguments, check=True, stdout=subprocess.DEVNULL)  # the reports are read back as JSON
+    subprocess.run(
+        CAPTIONER + arguments, check=True, stdout=subprocess.DEVNULL
+    )  # the reports are read back as JSON
 
 
 def caption_all(eval_dir: Path, work: Path, style: str | None) -> float:
     started = time.perf_counter()
     for clip in sorted(eval_dir.glob("*.mp4")):
         style_args = ["--style", style] if style else []
-        run(["caption", str(clip), "-o", str(work / f"{clip.stem}.vtt"), "--events-json", str(work / f"{clip.stem}.json"), "--quiet", "--force", *style_args])
+        run(
+            [
+                "caption",
+                str(clip),
+                "-o",
+                str(work / f"{clip.stem}.vtt"),
+                "--events-json",
+                str(work / f"{clip.stem}.json"),
+                "--quiet",
+                "--force",
+                *style_args,
+            ]
+        )
     return time.perf_counter() - started
 
 
 def evaluate(eval_dir: Path, work: Path, *extra: str) -> dict[str, Any]:
     report = work / ("scores.json" if "--scores" in extra else "quality.json")
-    run([
-        "evaluate", str(eval_dir / "truth.csv"), str(work), "--concepts", str(eval_dir / "concepts.yaml"),
-        "--dialogue", str(eval_dir / "dialogue.csv"), "--durations", str(eval_dir / "files.csv"),
-        "--json", str(report), "--force", *extra,
-    ])
+    run(
+        [
+            "evaluate",
+            str(eval_dir / "truth.csv"),
+            str(work),
+            "--concepts",
+            str(eval_dir / "concepts.yaml"),
+            "--dialogue",
+            str(eval_dir / "dialogue.csv"),
+            "--durations",
+            str(eval_dir / "files.csv"),
+            "--json",
+            str(report),
+            "--force",
+            *extra,
+        ]
+    )
     data: dict[str, Any] = json.loads(report.read_text(encoding="utf-8"))
     return data
 
@@ -73,19 +99,30 @@ def quality_markdown(data: dict[str, Any]) -> str:
 
 
 def scores_markdown(data: dict[str, Any]) -> str:
-    lines = ["| concept | scored by | positive patches | ROC AUC | AP | d′ |", "|---|---|---:|---:|---:|---:|"]
+    lines = [
+        "| concept | scored by | positive patches | ROC AUC | AP | d′ |",
+        "|---|---|---:|---:|---:|---:|",
+    ]
     for name, r in data["concepts"].items():
         d_text = _cell(r["d_prime"], 2) if r["d_prime"] is not None or r["auc"] is None else "∞"
-        lines.append(f"| {name} | {', '.join(r['score_concepts'])} | {r['positives']} | {_cell(r['auc'])} | {_cell(r['average_precision'])} | {d_text} |")
+        lines.append(
+            f"| {name} | {', '.join(r['score_concepts'])} | {r['positives']} | {_cell(r['auc'])} | {_cell(r['average_precision'])} | {d_text} |"
+        )
     b = data["balanced"]
-    lines.append(f"| **class-balanced mean** | | | {_cell(b['auc'])} | {_cell(b['average_precision'])} | {_cell(b['d_prime'], 2)} |")
+    lines.append(
+        f"| **class-balanced mean** | | | {_cell(b['auc'])} | {_cell(b['average_precision'])} | {_cell(b['d_prime'], 2)} |"
+    )
     return "\n".join(lines)
 
 
 def main() -> int:
-    parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    parser = argparse.ArgumentParser(
+        description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter
+    )
     parser.add_argument("eval_dir", type=Path)
-    parser.add_argument("--work", type=Path, help="folder for captions, sidecars and reports (default: a temporary one)")
+    parser.add_argument(
+        "--work", type=Path, help="folder for captions, sidecars and reports (default: a temporary one)"
+    )
     parser.add_argument("--style", help="style preset or file (default: captioner's default)")
     args = parser.parse_args()
     with tempfile.TemporaryDirectory() as temporary:

@@ -53,7 +53,11 @@ ABLATIONS: list[tuple[str, str, dict[str, Any]]] = [
     ("music mood/genre at any confidence", "selection", {"music_detail_confidence": 0.0}),
     ("bridging of flickering patches off", "detection", {"bridge_ms": 0}),
     ("lasting sounds from a single patch", "detection", {"lasting_min_active_ms": 0}),
-    ("no single sure patch for lasting sounds (lasting_sure_score 1)", "detection", {"lasting_sure_score": 1.0}),
+    (
+        "no single sure patch for lasting sounds (lasting_sure_score 1)",
+        "detection",
+        {"lasting_sure_score": 1.0},
+    ),
     ("median filter 1.44 s on lasting sounds", "detection", {"median_ms": 1440}),
     ("onset refinement off", "detection", {"onset_refine": False}),
 ]
@@ -63,7 +67,15 @@ def score(eval_dir: Path, captions: Path) -> dict[str, Any]:
     """Run the set's scorer on a folder of caption files; its JSON report."""
     report = captions / "report.json"
     subprocess.run(
-        [sys.executable, str(eval_dir / "score.py"), str(eval_dir), str(captions), "--json", str(report), "--quiet"],
+        [
+            sys.executable,
+            str(eval_dir / "score.py"),
+            str(eval_dir),
+            str(captions),
+            "--json",
+            str(report),
+            "--quiet",
+        ],
         check=True,
         stdout=subprocess.DEVNULL,
     )
@@ -77,7 +89,9 @@ def write_captions(folder: Path, cues_by_stem: dict[str, tuple[Any, ...]]) -> No
         (folder / f"{stem}.vtt").write_text(WRITERS["vtt"](cues, "evaluation run"), encoding="utf-8")
 
 
-def caption_set(eval_dir: Path, pack: packs.LoadedPack, style: Style) -> tuple[dict[str, ScoreTrack], dict[str, tuple[Any, ...]], float]:
+def caption_set(
+    eval_dir: Path, pack: packs.LoadedPack, style: Style
+) -> tuple[dict[str, ScoreTrack], dict[str, tuple[Any, ...]], float]:
     """Caption every devNN.wav through the real pipeline; tracks, cues and seconds spent."""
     tracks, cues = {}, {}
     started = time.perf_counter()
@@ -87,7 +101,9 @@ def caption_set(eval_dir: Path, pack: packs.LoadedPack, style: Style) -> tuple[d
     return tracks, cues, time.perf_counter() - started
 
 
-def recaption(tracks: dict[str, ScoreTrack], pack: packs.LoadedPack, style: Style) -> dict[str, tuple[Any, ...]]:
+def recaption(
+    tracks: dict[str, ScoreTrack], pack: packs.LoadedPack, style: Style
+) -> dict[str, tuple[Any, ...]]:
     return {stem: pipeline.caption_track(track, pack.vocabulary, style)[3] for stem, track in tracks.items()}
 
 
@@ -103,9 +119,14 @@ def overall_row(name: str, o: dict[str, Any]) -> str:
 
 
 def concept_table(report: dict[str, Any]) -> str:
-    lines = ["| concept | events | found | cues | matched cues | P | R | F1 | onset error (s) |", "|---|---:|---:|---:|---:|---:|---:|---:|---:|"]
+    lines = [
+        "| concept | events | found | cues | matched cues | P | R | F1 | onset error (s) |",
+        "|---|---:|---:|---:|---:|---:|---:|---:|---:|",
+    ]
     for name, c in sorted(report["per_concept"].items()):
-        lines.append(f"| {name} | {c['events']} | {c['hit']} | {c['cues']} | {c['cues_tp']} | {_f(c['P'])} | {_f(c['R'])} | {_f(c['F1'])} | {_f(c['onset_mae'], 2)} |")
+        lines.append(
+            f"| {name} | {c['events']} | {c['hit']} | {c['cues']} | {c['cues_tp']} | {_f(c['P'])} | {_f(c['R'])} | {_f(c['F1'])} | {_f(c['onset_mae'], 2)} |"
+        )
     return "\n".join(lines)
 
 
@@ -113,9 +134,17 @@ HEADER = "| run | F1 | P | R | events found | cues | onset error (s) | false ala
 
 
 def main(argv: list[str] | None = None) -> int:
-    parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
-    parser.add_argument("eval_dir", type=Path, help="folder with devNN.wav, truth.csv, dialogue.csv, files.csv, concepts.yaml and score.py")
-    parser.add_argument("--style", default="brackets", help="style preset or file (default: brackets, the default style)")
+    parser = argparse.ArgumentParser(
+        description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter
+    )
+    parser.add_argument(
+        "eval_dir",
+        type=Path,
+        help="folder with devNN.wav, truth.csv, dialogue.csv, files.csv, concepts.yaml and score.py",
+    )
+    parser.add_argument(
+        "--style", default="brackets", help="style preset or file (default: brackets, the default style)"
+    )
     parser.add_argument("--hops", default="", help="also run these patch hops in ms, e.g. 480,240,160")
     parser.add_argument("--keep", type=Path, help="write the caption files of every run under this folder")
     args = parser.parse_args(argv)
@@ -130,7 +159,9 @@ def main(argv: list[str] | None = None) -> int:
     tracks, cues, seconds = caption_set(eval_dir, pack, style)
     write_captions(work / "default", cues)
     report = score(eval_dir, work / "default")
-    print(f"## Default style `{style.name}`, patch hop {style.detection.patch_hop_ms} ms ({seconds:.1f} s for {len(tracks)} files)\n")
+    print(
+        f"## Default style `{style.name}`, patch hop {style.detection.patch_hop_ms} ms ({seconds:.1f} s for {len(tracks)} files)\n"
+    )
     print(HEADER)
     print(overall_row("default", report["overall"]))
     print("\n### Per concept\n")
@@ -146,11 +177,17 @@ def main(argv: list[str] | None = None) -> int:
         print(overall_row(name, score(eval_dir, folder)["overall"]), flush=True)
 
     print("\n### Scoring: one pass or the mean over three input levels (whole pipeline)\n")
-    print("| level spread (dB) | F1 | P | R | events found | cues | onset error (s) | false alarms / dialogue min | seconds for the set |")
+    print(
+        "| level spread (dB) | F1 | P | R | events found | cues | onset error (s) | false alarms / dialogue min | seconds for the set |"
+    )
     print("|---:|---:|---:|---:|---:|---:|---:|---:|---:|")
     for spread in sorted({0.0, 3.0, style.detection.level_spread_db, 9.0}):
         variant = replace(style, "detection", level_spread_db=spread)
-        _, spread_cues, spread_seconds = (tracks, cues, seconds) if spread == style.detection.level_spread_db else caption_set(eval_dir, pack, variant)
+        _, spread_cues, spread_seconds = (
+            (tracks, cues, seconds)
+            if spread == style.detection.level_spread_db
+            else caption_set(eval_dir, pack, variant)
+        )
         folder = work / f"spread-{spread:g}"
         write_captions(folder, spread_cues)
         o = score(eval_dir, folder)["overall"]
@@ -163,14 +200,19 @@ def main(argv: list[str] | None = None) -> int:
     hops = [int(h) for h in args.hops.split(",") if h.strip()]
     if hops:
         print("\n### Patch hop: timing accuracy against classifier cost (whole pipeline)\n")
-        print("| hop (ms) | F1 | P | R | onset error (s) | seconds for the set |\n|---:|---:|---:|---:|---:|---:|")
+        print(
+            "| hop (ms) | F1 | P | R | onset error (s) | seconds for the set |\n|---:|---:|---:|---:|---:|---:|"
+        )
         for hop in hops:
             variant = replace(style, "detection", patch_hop_ms=hop)
             _, hop_cues, hop_seconds = caption_set(eval_dir, pack, variant)
             folder = work / f"hop-{hop}"
             write_captions(folder, hop_cues)
             o = score(eval_dir, folder)["overall"]
-            print(f"| {hop} | {_f(o['F1'])} | {_f(o['P'])} | {_f(o['R'])} | {_f(o['onset_mae'], 2)} | {hop_seconds:.1f} |", flush=True)
+            print(
+                f"| {hop} | {_f(o['F1'])} | {_f(o['P'])} | {_f(o['R'])} | {_f(o['onset_mae'], 2)} | {hop_seconds:.1f} |",
+                flush=True,
+            )
     print(f"\ncaption files: {work}")
     return 0
 

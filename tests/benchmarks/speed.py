@@ -37,12 +37,42 @@ def make_input(path: Path, minutes: int) -> Path:
     if path.exists():
         return path
     subprocess.run(
-        [media.ffmpeg_executable(), "-v", "error", "-y", "-nostdin",
-         "-f", "lavfi", "-i", f"color=c=black:s=64x64:r=1:d={seconds}",
-         "-f", "lavfi", "-i", f"anoisesrc=d={seconds}:c=pink:a=0.05:r=44100",
-         "-f", "lavfi", "-i", f"sine=f=880:r=44100:d={seconds}",
-         "-filter_complex", "[2:a]volume='0.3*lt(mod(t,7),0.5)':eval=frame[beep];[1:a][beep]amix=inputs=2:normalize=0[a]",
-         "-map", "0:v", "-map", "[a]", "-c:v", "libx264", "-preset", "ultrafast", "-c:a", "aac", "-b:a", "96k", "-ac", "2", str(path)],
+        [
+            media.ffmpeg_executable(),
+            "-v",
+            "error",
+            "-y",
+            "-nostdin",
+            "-f",
+            "lavfi",
+            "-i",
+            f"color=c=black:s=64x64:r=1:d={seconds}",
+            "-f",
+            "lavfi",
+            "-i",
+            f"anoisesrc=d={seconds}:c=pink:a=0.05:r=44100",
+            "-f",
+            "lavfi",
+            "-i",
+            f"sine=f=880:r=44100:d={seconds}",
+            "-filter_complex",
+            "[2:a]volume='0.3*lt(mod(t,7),0.5)':eval=frame[beep];[1:a][beep]amix=inputs=2:normalize=0[a]",
+            "-map",
+            "0:v",
+            "-map",
+            "[a]",
+            "-c:v",
+            "libx264",
+            "-preset",
+            "ultrafast",
+            "-c:a",
+            "aac",
+            "-b:a",
+            "96k",
+            "-ac",
+            "2",
+            str(path),
+        ],
         check=True,
     )
     return path
@@ -61,7 +91,9 @@ def measure(path: Path, stage: str) -> dict[str, float]:
         result = pipeline.caption_file(path, pack, style)
         extra = {"cues": len(result.cues)}
     elif stage == "decode":
-        total = sum(chunk.size for chunk in media.decode_chunks(path, stream, sample_rate=frontend.sample_rate))
+        total = sum(
+            chunk.size for chunk in media.decode_chunks(path, stream, sample_rate=frontend.sample_rate)
+        )
         extra = {"samples": total}
     else:
         hop_frames = style.detection.patch_hop_ms // 10
@@ -76,7 +108,13 @@ def measure(path: Path, stage: str) -> dict[str, float]:
         chunks = (np.asarray(audio[i : i + step]) for i in range(0, audio.size, step))
         with threadpool_limits(limits=1, user_api="blas"):  # as the pipeline runs them
             if stage == "classify":  # as the pipeline scores: every patch at three levels
-                n = compute_scores(chunks, pack.classifier, frontend, hop_ms=style.detection.patch_hop_ms, level_spread_db=style.detection.level_spread_db).n_patches
+                n = compute_scores(
+                    chunks,
+                    pack.classifier,
+                    frontend,
+                    hop_ms=style.detection.patch_hop_ms,
+                    level_spread_db=style.detection.level_spread_db,
+                ).n_patches
             else:
                 patch_stream = PatchStream(frontend, hop_frames)
                 n = sum(patch_stream.push(chunk).patches.shape[0] for chunk in chunks)
@@ -87,7 +125,9 @@ def measure(path: Path, stage: str) -> dict[str, float]:
 
 
 def main() -> None:
-    parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    parser = argparse.ArgumentParser(
+        description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter
+    )
     parser.add_argument("--minutes", type=int, nargs="+", default=[10, 60])
     parser.add_argument("--workdir", type=Path, default=Path(tempfile.gettempdir()) / "captioner-bench")
     parser.add_argument("--stage", help=argparse.SUPPRESS)
@@ -103,10 +143,22 @@ def main() -> None:
     for minutes in args.minutes:
         path = make_input(args.workdir / f"bench-{minutes}min.mp4", minutes)
         for stage in ("decode", "features", "classify", "end_to_end"):
-            out = subprocess.run([sys.executable, __file__, "--stage", stage, "--input", str(path)], capture_output=True, text=True, check=True)
+            out = subprocess.run(
+                [sys.executable, __file__, "--stage", stage, "--input", str(path)],
+                capture_output=True,
+                text=True,
+                check=True,
+            )
             r = json.loads(out.stdout.strip().splitlines()[-1])
-            label = {"features": "log-mel only", "classify": "log-mel + classifier", "end_to_end": "end to end"}.get(stage, "decode (ffmpeg)")
-            print(f"| {minutes} min AAC | {label} | {r['seconds']:.1f} | {r['cpu_seconds']:.1f} | {minutes * 60 / r['seconds']:.0f}× | {r['peak_mb']:.0f} |", flush=True)
+            label = {
+                "features": "log-mel only",
+                "classify": "log-mel + classifier",
+                "end_to_end": "end to end",
+            }.get(stage, "decode (ffmpeg)")
+            print(
+                f"| {minutes} min AAC | {label} | {r['seconds']:.1f} | {r['cpu_seconds']:.1f} | {minutes * 60 / r['seconds']:.0f}× | {r['peak_mb']:.0f} |",
+                flush=True,
+            )
 
 
 if __name__ == "__main__":

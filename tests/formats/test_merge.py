@@ -30,7 +30,15 @@ from captioner.style import Style, load_style, replace
 VTT_TIMING = re.compile(r"^(\d{2,}:)?[0-5]\d:[0-5]\d\.\d{3} --> (\d{2,}:)?[0-5]\d:[0-5]\d\.\d{3}( .*)?$")
 # SRT (de facto, as described in Matroska's subtitle notes): HH:MM:SS,mmm with a comma
 SRT_TIMING = re.compile(r"^\d{2}:\d{2}:\d{2},\d{3} --> \d{2}:\d{2}:\d{2},\d{3}$")
-SOUNDS = ["[door slams]", "[dog barking]", "[upbeat music]", "[glass clinking]", "[phone ringing]", "[kettle whistling]", "[applause]"]
+SOUNDS = [
+    "[door slams]",
+    "[dog barking]",
+    "[upbeat music]",
+    "[glass clinking]",
+    "[phone ringing]",
+    "[kettle whistling]",
+    "[applause]",
+]
 STRATEGIES = ["position", "combine", "move", "drop"]
 
 
@@ -40,13 +48,21 @@ def stamp(ms: int) -> str:
 
 def vtt_text(cues: list[SubtitleCue]) -> str:
     """A dialogue file composed by the reference library webvtt-py."""
-    captions = [webvtt.Caption(stamp(c.start_ms), stamp(c.end_ms), c.text, c.identifier or None, c.settings or None) for c in cues]
+    captions = [
+        webvtt.Caption(stamp(c.start_ms), stamp(c.end_ms), c.text, c.identifier or None, c.settings or None)
+        for c in cues
+    ]
     return webvtt.WebVTT(captions=captions).content
 
 
 def srt_text(cues: list[SubtitleCue]) -> str:
     """A dialogue file composed by the reference library srt."""
-    return srt.compose([srt.Subtitle(i, timedelta(milliseconds=c.start_ms), timedelta(milliseconds=c.end_ms), c.text) for i, c in enumerate(cues, 1)])
+    return srt.compose(
+        [
+            srt.Subtitle(i, timedelta(milliseconds=c.start_ms), timedelta(milliseconds=c.end_ms), c.text)
+            for i, c in enumerate(cues, 1)
+        ]
+    )
 
 
 def dialogue_track(cues: list[SubtitleCue], fmt: SubtitleFormat) -> SubtitleTrack:
@@ -65,8 +81,26 @@ def parsed_output(text: str, fmt: SubtitleFormat) -> list[tuple[int, int, list[s
     """(start, end, lines, identifier, settings) of every cue, read back by the reference libraries."""
     if fmt == "vtt":
         document = webvtt.from_buffer(io.StringIO(text), strict=True)
-        return [(c.start_time.in_milliseconds(), c.end_time.in_milliseconds(), c.lines, c.identifier or "", str(c.settings)) for c in document.captions]
-    return [(s.start // timedelta(milliseconds=1), s.end // timedelta(milliseconds=1), s.content.split("\n"), str(s.index), "") for s in srt.parse(text)]
+        return [
+            (
+                c.start_time.in_milliseconds(),
+                c.end_time.in_milliseconds(),
+                c.lines,
+                c.identifier or "",
+                str(c.settings),
+            )
+            for c in document.captions
+        ]
+    return [
+        (
+            s.start // timedelta(milliseconds=1),
+            s.end // timedelta(milliseconds=1),
+            s.content.split("\n"),
+            str(s.index),
+            "",
+        )
+        for s in srt.parse(text)
+    ]
 
 
 def remove_sound(text: str, fmt: SubtitleFormat) -> list[tuple[int, int, str, str, str]]:
@@ -105,10 +139,15 @@ def assert_valid_file(text: str, fmt: SubtitleFormat) -> None:
 
 # -- hand-made cases, one per rule --------------------------------------------------------
 
+
 def test_sound_clear_of_dialogue_is_kept_in_time_order() -> None:
     track = dialogue_track([SubtitleCue(1000, 3000, "Morning."), SubtitleCue(8000, 10000, "Coffee?")], "vtt")
     merged = merge_tracks(track, [sound(4000, 6500, "[kettle whistling]")], style_for("brackets", "position"))
-    assert [(c.start_ms, c.end_ms, c.dialogue is None) for c in merged.cues] == [(1000, 3000, False), (4000, 6500, True), (8000, 10000, False)]
+    assert [(c.start_ms, c.end_ms, c.dialogue is None) for c in merged.cues] == [
+        (1000, 3000, False),
+        (4000, 6500, True),
+        (8000, 10000, False),
+    ]
     assert merged.outcomes[0].action == "kept"
     text = dumps_merged(merged, note="demo")
     assert text == (
@@ -132,7 +171,9 @@ def test_webvtt_position_puts_the_sound_at_the_edge_away_from_the_dialogue() -> 
 
 
 def test_dialogue_at_both_edges_falls_back_to_the_next_strategy() -> None:
-    track = dialogue_track([SubtitleCue(1000, 5000, "Up here.", settings="line:0"), SubtitleCue(1000, 5000, "Down here.")], "vtt")
+    track = dialogue_track(
+        [SubtitleCue(1000, 5000, "Up here.", settings="line:0"), SubtitleCue(1000, 5000, "Down here.")], "vtt"
+    )
     merged = merge_tracks(track, [sound(2000, 4000, "[door slams]")], style_for("brackets", "position"))
     outcome = merged.outcomes[0]
     assert outcome.action != "positioned"
@@ -179,7 +220,11 @@ def test_sound_with_no_room_is_left_out_and_the_reason_recorded() -> None:
 
 def test_drop_strategy_leaves_out_every_clashing_sound() -> None:
     track = dialogue_track([SubtitleCue(1000, 5000, "Morning.")], "vtt")
-    merged = merge_tracks(track, [sound(2000, 4000, "[door slams]"), sound(8000, 10000, "[dog barking]", event="e2")], style_for("brackets", "drop"))
+    merged = merge_tracks(
+        track,
+        [sound(2000, 4000, "[door slams]"), sound(8000, 10000, "[dog barking]", event="e2")],
+        style_for("brackets", "drop"),
+    )
     assert [o.action for o in merged.outcomes] == ["dropped", "kept"]
 
 
@@ -196,23 +241,43 @@ def test_sound_cue_over_the_line_limit_is_rewrapped_and_split() -> None:
 
 def test_sound_identifiers_never_repeat_a_dialogue_identifier() -> None:
     track = dialogue_track([SubtitleCue(1000, 2000, "Hi.", "sound-e1")], "vtt")
-    text = dumps_merged(merge_tracks(track, [sound(5000, 7000, "[door slams]")], style_for("brackets", "position")))
+    text = dumps_merged(
+        merge_tracks(track, [sound(5000, 7000, "[door slams]")], style_for("brackets", "position"))
+    )
     assert "sound-e1-2\n00:00:05.000" in text
     assert_valid_file(text, "vtt")
 
 
 def test_style_and_region_blocks_of_the_dialogue_are_carried_over() -> None:
     text = "WEBVTT\n\nSTYLE\n::cue(.a) { color: lime }\n\nREGION\nid:r1\nwidth:40%\n\n00:00:01.000 --> 00:00:02.000 region:r1\n<c.a>Hi</c>\n"
-    merged = merge_tracks(parse_subtitles(text, "vtt"), [sound(5000, 7000, "[door slams]")], style_for("brackets", "position"))
+    merged = merge_tracks(
+        parse_subtitles(text, "vtt"), [sound(5000, 7000, "[door slams]")], style_for("brackets", "position")
+    )
     out = dumps_merged(merged)
-    assert out.index("STYLE\n::cue(.a) { color: lime }") < out.index("REGION\nid:r1\nwidth:40%") < out.index("-->")
+    assert (
+        out.index("STYLE\n::cue(.a) { color: lime }")
+        < out.index("REGION\nid:r1\nwidth:40%")
+        < out.index("-->")
+    )
     assert "00:00:01.000 --> 00:00:02.000 region:r1\n<c.a>Hi</c>" in out
 
 
 # -- property tests (Hypothesis) ----------------------------------------------------------
 
 WORDS = {
-    "vtt": ["tea", "now", "Ready?", "café", "<i>wait</i>", "<b>no</b>", "&amp;", "&lt;3", "<v A>hi</v>", "<c.loud>go</c>", "1/2"],
+    "vtt": [
+        "tea",
+        "now",
+        "Ready?",
+        "café",
+        "<i>wait</i>",
+        "<b>no</b>",
+        "&amp;",
+        "&lt;3",
+        "<v A>hi</v>",
+        "<c.loud>go</c>",
+        "1/2",
+    ],
     "srt": ["tea", "now", "Ready?", "café", "<i>wait</i>", "<b>no</b>", "&", "1/2", "well,"],
 }
 
@@ -225,9 +290,17 @@ def dialogue_cues(draw: st.DrawFn, fmt: SubtitleFormat, max_cues: int = 14) -> l
     for number in range(count):
         clock = max(0, clock + draw(st.integers(-800, 5000)))
         duration = draw(st.integers(300, 7000))
-        lines = draw(st.lists(st.lists(st.sampled_from(WORDS[fmt]), min_size=1, max_size=7).map(" ".join), min_size=1, max_size=3))
+        lines = draw(
+            st.lists(
+                st.lists(st.sampled_from(WORDS[fmt]), min_size=1, max_size=7).map(" ".join),
+                min_size=1,
+                max_size=3,
+            )
+        )
         identifier = draw(st.sampled_from(["", f"d{number}"])) if fmt == "vtt" else ""
-        cue_settings = draw(st.sampled_from(["", "", "line:0", "align:start", "line:85%,end"])) if fmt == "vtt" else ""
+        cue_settings = (
+            draw(st.sampled_from(["", "", "line:0", "align:start", "line:85%,end"])) if fmt == "vtt" else ""
+        )
         cues.append(SubtitleCue(clock, clock + duration, "\n".join(lines), identifier, cue_settings))
         clock += duration
     return sorted(cues, key=lambda c: (c.start_ms, c.end_ms))
@@ -255,9 +328,13 @@ PROPERTY = settings(max_examples=200, deadline=None, suppress_health_check=[Heal
 def test_removing_the_sound_gives_back_the_dialogue_exactly(fmt: SubtitleFormat, data: st.DataObject) -> None:
     original = data.draw(dialogue_cues(fmt))
     sounds = data.draw(sound_cues())
-    style = style_for(data.draw(st.sampled_from(["brackets", "capitals"])), data.draw(st.sampled_from(STRATEGIES)))
+    style = style_for(
+        data.draw(st.sampled_from(["brackets", "capitals"])), data.draw(st.sampled_from(STRATEGIES))
+    )
     track = dialogue_track(original, fmt)
-    assert [(c.start_ms, c.end_ms, c.text) for c in track.cues] == [(c.start_ms, c.end_ms, c.text) for c in original]
+    assert [(c.start_ms, c.end_ms, c.text) for c in track.cues] == [
+        (c.start_ms, c.end_ms, c.text) for c in original
+    ]
     merged = merge_tracks(track, sounds, style)
     for action in sorted({o.action for o in merged.outcomes}):
         event(f"some sound cue {action}")  # shown with --hypothesis-show-statistics
@@ -285,7 +362,9 @@ def layout_violations(merged: MergedTrack, style: Style, fmt: SubtitleFormat) ->
     for cue in merged.cues:
         if not cue.sound_lines:
             continue  # the editor's dialogue passes through untouched
-        lines = (plain(cue.dialogue.text) if cue.dialogue and cue.dialogue.text else []) + list(cue.sound_lines)
+        lines = (plain(cue.dialogue.text) if cue.dialogue and cue.dialogue.text else []) + list(
+            cue.sound_lines
+        )
         words = sum(len(line.split()) for line in lines)
         duration = cue.end_ms - cue.start_ms
         if len(lines) > layout.max_lines:
@@ -314,7 +393,10 @@ def layout_violations(merged: MergedTrack, style: Style, fmt: SubtitleFormat) ->
                 problems.append(f"{cue}: gap {gap} ms to {other}")
     for outcome in merged.outcomes:
         # BBC §5.2-5.5 via the style: a placed sound (or the dialogue cue it joined) starts within the tolerance
-        if outcome.placed_start_ms is not None and abs(outcome.placed_start_ms - outcome.start_ms) > layout.sync_tolerance_ms:
+        if (
+            outcome.placed_start_ms is not None
+            and abs(outcome.placed_start_ms - outcome.start_ms) > layout.sync_tolerance_ms
+        ):
             problems.append(f"{outcome}: out of sync")
     if fmt == "srt":
         problems += [f"{c}: positioned in SRT" for c in merged.cues if c.edge]
@@ -325,7 +407,9 @@ def layout_violations(merged: MergedTrack, style: Style, fmt: SubtitleFormat) ->
 @given(data=st.data())
 def test_every_created_or_changed_cue_keeps_the_layout_limits(data: st.DataObject) -> None:
     fmt = data.draw(st.sampled_from(["vtt", "srt"]))
-    style = style_for(data.draw(st.sampled_from(["brackets", "capitals"])), data.draw(st.sampled_from(STRATEGIES)))
+    style = style_for(
+        data.draw(st.sampled_from(["brackets", "capitals"])), data.draw(st.sampled_from(STRATEGIES))
+    )
     merged = merge_tracks(dialogue_track(data.draw(dialogue_cues(fmt)), fmt), data.draw(sound_cues()), style)
     for action in sorted({o.action for o in merged.outcomes}):
         event(f"{fmt}: some sound cue {action}")  # shown with --hypothesis-show-statistics
@@ -346,20 +430,31 @@ def test_preset_limits_are_the_published_numbers() -> None:
 @pytest.mark.parametrize("fmt", ["vtt", "srt"])
 @pytest.mark.parametrize("preset", ["brackets", "capitals"])
 @pytest.mark.parametrize("strategy", STRATEGIES)
-def test_a_long_generated_merge_keeps_every_limit_and_every_dialogue_cue(fmt: SubtitleFormat, preset: str, strategy: str) -> None:
+def test_a_long_generated_merge_keeps_every_limit_and_every_dialogue_cue(
+    fmt: SubtitleFormat, preset: str, strategy: str
+) -> None:
     rng = random.Random(20240611)  # fixed: the same hour of dialogue and sounds every run
     dialogue, clock = [], 0
     while clock < 3_600_000:
         clock += rng.choice([0, 0, 200, 800, 1500, 3000, 6000, 12000])
         duration = rng.randint(700, 6500)
-        text = "\n".join(" ".join(rng.choices(WORDS[fmt], k=rng.randint(1, 7))) for _ in range(rng.choice([1, 1, 2, 2, 3])))
+        text = "\n".join(
+            " ".join(rng.choices(WORDS[fmt], k=rng.randint(1, 7))) for _ in range(rng.choice([1, 1, 2, 2, 3]))
+        )
         dialogue.append(SubtitleCue(clock, clock + duration, text))
         clock += duration
     sounds, clock = [], 0
     while clock < 3_600_000:
         clock += rng.randint(2000, 30000)
         duration = rng.randint(400, 9000)
-        sounds.append(Cue(clock, clock + duration, tuple(rng.sample(SOUNDS, rng.choice([1, 1, 2, 3]))), (f"e{len(sounds)}",)))
+        sounds.append(
+            Cue(
+                clock,
+                clock + duration,
+                tuple(rng.sample(SOUNDS, rng.choice([1, 1, 2, 3]))),
+                (f"e{len(sounds)}",),
+            )
+        )
         clock += duration
     style = style_for(preset, strategy)
     track = dialogue_track(dialogue, fmt)
@@ -369,14 +464,20 @@ def test_a_long_generated_merge_keeps_every_limit_and_every_dialogue_cue(fmt: Su
     assert unmerge(merged) == track.cues
     text = dumps_merged(merged)
     assert_valid_file(text, fmt)
-    assert [(s, e, t) for s, e, t, *_ in remove_sound(text, fmt)] == [(c.start_ms, c.end_ms, c.text) for c in track.cues]
+    assert [(s, e, t) for s, e, t, *_ in remove_sound(text, fmt)] == [
+        (c.start_ms, c.end_ms, c.text) for c in track.cues
+    ]
     actions = {o.action for o in merged.outcomes}
-    assert "kept" in actions and (strategy == "drop") == ("moved" not in actions and "combined" not in actions and "positioned" not in actions)
+    assert "kept" in actions and (strategy == "drop") == (
+        "moved" not in actions and "combined" not in actions and "positioned" not in actions
+    )
 
 
 # -- command line -------------------------------------------------------------------------
 
-DIALOGUE = "WEBVTT\n\n00:00:01.000 --> 00:00:04.000\n<i>Morning.</i>\n\n00:00:09.000 --> 00:00:12.000\nCoffee?\n"
+DIALOGUE = (
+    "WEBVTT\n\n00:00:01.000 --> 00:00:04.000\n<i>Morning.</i>\n\n00:00:09.000 --> 00:00:12.000\nCoffee?\n"
+)
 SOUND = "WEBVTT\n\ne1\n00:00:02.000 --> 00:00:04.000\n[door slams]\n\ne2\n00:00:05.000 --> 00:00:07.000\n[dog barking]\n"
 
 
@@ -385,17 +486,41 @@ def test_merge_command_writes_the_merged_track_and_never_touches_the_inputs(tmp_
     dialogue.write_text(DIALOGUE, encoding="utf-8")
     sounds.write_text(SOUND, encoding="utf-8")
     before = dialogue.read_bytes()
-    assert main(["merge", str(sounds), str(dialogue), "-o", str(out), "--events-json", str(tmp_path / "m.json"), "--quiet"]) == 0
+    assert (
+        main(
+            [
+                "merge",
+                str(sounds),
+                str(dialogue),
+                "-o",
+                str(out),
+                "--events-json",
+                str(tmp_path / "m.json"),
+                "--quiet",
+            ]
+        )
+        == 0
+    )
     text = out.read_text(encoding="utf-8")
     assert "00:00:02.000 --> 00:00:04.000 line:0\n[door slams]" in text and "<i>Morning.</i>" in text
     assert_valid_file(text, "vtt")
     record = json.loads((tmp_path / "m.json").read_text(encoding="utf-8"))
-    assert [(r["events"], r["action"]) for r in record["sound_cues"]] == [(["e1"], "positioned"), (["e2"], "kept")]
+    assert [(r["events"], r["action"]) for r in record["sound_cues"]] == [
+        (["e1"], "positioned"),
+        (["e2"], "kept"),
+    ]
     assert dialogue.read_bytes() == before
-    assert sorted(p.name for p in tmp_path.iterdir()) == ["m.json", "talk.merged.vtt", "talk.sounds.vtt", "talk.vtt"]  # no temporary left
+    assert sorted(p.name for p in tmp_path.iterdir()) == [
+        "m.json",
+        "talk.merged.vtt",
+        "talk.sounds.vtt",
+        "talk.vtt",
+    ]  # no temporary left
 
 
-def test_merge_command_refuses_to_overwrite_and_never_writes_over_an_input(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+def test_merge_command_refuses_to_overwrite_and_never_writes_over_an_input(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
     dialogue, sounds, out = tmp_path / "talk.vtt", tmp_path / "talk.sounds.vtt", tmp_path / "out.vtt"
     dialogue.write_text(DIALOGUE, encoding="utf-8")
     sounds.write_text(SOUND, encoding="utf-8")
@@ -418,9 +543,13 @@ def test_merge_command_keeps_the_dialogue_format(tmp_path: Path, capsys: pytest.
     assert not (tmp_path / "out.srt").exists()
 
 
-def test_malformed_dialogue_stops_the_merge_with_file_and_line(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+def test_malformed_dialogue_stops_the_merge_with_file_and_line(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
     dialogue, sounds = tmp_path / "talk.srt", tmp_path / "talk.sounds.vtt"
-    dialogue.write_text("1\n00:00:01,000 --> 00:00:02,000\nHi\n\n2\n00:00:05,000 --> 00:00:03,000\nBye\n", encoding="utf-8")
+    dialogue.write_text(
+        "1\n00:00:01,000 --> 00:00:02,000\nHi\n\n2\n00:00:05,000 --> 00:00:03,000\nBye\n", encoding="utf-8"
+    )
     sounds.write_text(SOUND, encoding="utf-8")
     assert main(["merge", str(sounds), str(dialogue), "-o", str(tmp_path / "out.srt")]) == 2
     assert "talk.srt, line 6: cue ends before or when it starts" in capsys.readouterr().err

@@ -12,7 +12,14 @@ import webvtt
 
 from captioner.errors import SubtitleError
 from captioner.events import Span
-from captioner.formats.subtitles import SubtitleCue, dialogue_spans, parse_subtitles, plain_lines, read_subtitles, read_track
+from captioner.formats.subtitles import (
+    SubtitleCue,
+    dialogue_spans,
+    parse_subtitles,
+    plain_lines,
+    read_subtitles,
+    read_track,
+)
 
 VTT = """WEBVTT - dialogue of the breakfast scene
 
@@ -51,7 +58,13 @@ def test_webvtt_text_tags_identifiers_and_settings_are_kept_exactly(tmp_path: Pa
     track = read_track(path)
     assert track.format == "vtt"
     assert track.cues == (
-        SubtitleCue(1000, 2500, "<v A><i>Morning</i> &amp; welcome</v>\n  <c.loud>second line</c>", "intro", "line:0 align:start"),
+        SubtitleCue(
+            1000,
+            2500,
+            "<v A><i>Morning</i> &amp; welcome</v>\n  <c.loud>second line</c>",
+            "intro",
+            "line:0 align:start",
+        ),
         # W3C WebVTT timestamps: hh:mm:ss.ttt, so 01:02:03.004 is 3,723,004 ms
         SubtitleCue(3723004, 3725000, "Toast &lt;burnt&gt; again?", "", ""),
     )
@@ -73,7 +86,11 @@ def test_srt_text_and_markup_are_kept_exactly(tmp_path: Path) -> None:
     path.write_text(SRT, encoding="utf-8")
     cues = read_subtitles(path)
     reference = list(srt.parse(SRT))
-    assert [c.text for c in cues] == [s.content for s in reference] == ["<i>Morning</i> & welcome\nsecond line", "Toast again?"]
+    assert (
+        [c.text for c in cues]
+        == [s.content for s in reference]
+        == ["<i>Morning</i> & welcome\nsecond line", "Toast again?"]
+    )
     assert [(c.start_ms, c.end_ms) for c in cues] == [(1000, 2500), (3723004, 3725000)]  # SRT: HH:MM:SS,mmm
 
 
@@ -111,24 +128,63 @@ def test_bytes_undefined_in_windows_1252_fall_back_to_latin_1(tmp_path: Path) ->
 @pytest.mark.parametrize(
     ("name", "text", "line", "problem"),
     [
-        ("header.vtt", "WEBVT\n\n00:00:01.000 --> 00:00:02.000\nhi\n", 1, "first line must start with WEBVTT"),
-        ("stamp.vtt", "WEBVTT\n\n00:00:01.000 --> 00:00:02.000\nhi\n\n00:00:03.000 --> 00:00:0x.000\nho\n", 6, "not a valid WebVTT cue"),
+        (
+            "header.vtt",
+            "WEBVT\n\n00:00:01.000 --> 00:00:02.000\nhi\n",
+            1,
+            "first line must start with WEBVTT",
+        ),
+        (
+            "stamp.vtt",
+            "WEBVTT\n\n00:00:01.000 --> 00:00:02.000\nhi\n\n00:00:03.000 --> 00:00:0x.000\nho\n",
+            6,
+            "not a valid WebVTT cue",
+        ),
         # W3C WebVTT: "line" takes a number or a percentage
-        ("setting.vtt", "WEBVTT\n\nNOTE x\n\n00:00:01.000 --> 00:00:02.000 line:abc\nhi\n", 5, "not a valid WebVTT cue"),
-        ("blank.vtt", "WEBVTT\n\n00:00:01.000 --> 00:00:02.000\nhi\n00:00:03.000 --> 00:00:04.000\nho\n", 5, "without a blank line"),
+        (
+            "setting.vtt",
+            "WEBVTT\n\nNOTE x\n\n00:00:01.000 --> 00:00:02.000 line:abc\nhi\n",
+            5,
+            "not a valid WebVTT cue",
+        ),
+        (
+            "blank.vtt",
+            "WEBVTT\n\n00:00:01.000 --> 00:00:02.000\nhi\n00:00:03.000 --> 00:00:04.000\nho\n",
+            5,
+            "without a blank line",
+        ),
         # W3C WebVTT: a cue's end time must be greater than its start time
-        ("order.vtt", "WEBVTT\n\n00:00:01.000 --> 00:00:02.000\nhi\n\n00:00:05.000 --> 00:00:04.000\nho\n", 6, "ends before or when it starts"),
+        (
+            "order.vtt",
+            "WEBVTT\n\n00:00:01.000 --> 00:00:02.000\nhi\n\n00:00:05.000 --> 00:00:04.000\nho\n",
+            6,
+            "ends before or when it starts",
+        ),
         ("garbage.srt", "\n\nnot a subtitle\n\n1\n00:00:01,000 --> 00:00:02,000\nhi\n", 3, "not valid SRT"),
-        ("order.srt", "1\n00:00:01,000 --> 00:00:02,000\nhi\n\n2\n00:00:03,000 --> 00:00:02,500\nho\n", 6, "ends before or when it starts"),
+        (
+            "order.srt",
+            "1\n00:00:01,000 --> 00:00:02,000\nhi\n\n2\n00:00:03,000 --> 00:00:02,500\nho\n",
+            6,
+            "ends before or when it starts",
+        ),
         # SRT cue text may hold "-->": the line named is the bad cue's timing line, not the text's
-        ("arrow.srt", "1\n00:00:01,000 --> 00:00:02,000\nrun --> now\n\n2\n00:00:05,000 --> 00:00:03,000\nho\n", 6, "ends before"),
+        (
+            "arrow.srt",
+            "1\n00:00:01,000 --> 00:00:02,000\nrun --> now\n\n2\n00:00:05,000 --> 00:00:03,000\nho\n",
+            6,
+            "ends before",
+        ),
         ("webvtt.srt", "WEBVTT\n\n00:00:01.000 --> 00:00:02.000\nhi\n", 1, "not valid SRT"),
     ],
 )
-def test_malformed_file_gives_one_error_naming_file_and_line(tmp_path: Path, name: str, text: str, line: int, problem: str) -> None:
+def test_malformed_file_gives_one_error_naming_file_and_line(
+    tmp_path: Path, name: str, text: str, line: int, problem: str
+) -> None:
     path = tmp_path / name
     path.write_text(text, encoding="utf-8")
-    with pytest.raises(SubtitleError, match=rf"{name.replace('.', '[.]')}, line {line}: .*{problem}") as caught:
+    with pytest.raises(
+        SubtitleError, match=rf"{name.replace('.', '[.]')}, line {line}: .*{problem}"
+    ) as caught:
         read_subtitles(path)
     assert "\n" not in str(caught.value)  # one line for the terminal
 
@@ -151,7 +207,12 @@ def test_reading_never_changes_the_file(tmp_path: Path) -> None:
 
 
 def test_dialogue_spans_join_overlapping_cues() -> None:
-    cues = [SubtitleCue(0, 1000, "a"), SubtitleCue(4000, 5000, "c"), SubtitleCue(500, 2000, "b"), SubtitleCue(2000, 2500, "d")]
+    cues = [
+        SubtitleCue(0, 1000, "a"),
+        SubtitleCue(4000, 5000, "c"),
+        SubtitleCue(500, 2000, "b"),
+        SubtitleCue(2000, 2500, "d"),
+    ]
     assert dialogue_spans(cues) == (Span(0, 2500), Span(4000, 5000))
     assert dialogue_spans([]) == ()
 
@@ -170,24 +231,44 @@ def test_each_cue_knows_the_line_of_its_timing_line() -> None:
     # cue text holding an arrow, and even a line shaped like a timing line, is still text
     text = "1\n00:00:01,000 --> 00:00:02,000\nrun --> now\n00:00:09,000 --> 00:00:10,000 is the clip\n\n2\n00:00:03,000 --> 00:00:04,000\nho\n"
     assert len(list(srt.parse(text))) == 2  # the reference library reads two cues too
-    assert [c.location for c in parse_subtitles(text, "srt", name="talk.srt").cues] == ["talk.srt, line 2", "talk.srt, line 7"]
-    vtt = "WEBVTT\n\nNOTE x\n\nintro\n00:00:01.000 --> 00:00:02.000\nhi\n\n00:00:03.000 --> 00:00:04.000\nho\n"
-    assert [c.location for c in parse_subtitles(vtt, "vtt", name="talk.vtt").cues] == ["talk.vtt, line 6", "talk.vtt, line 9"]
+    assert [c.location for c in parse_subtitles(text, "srt", name="talk.srt").cues] == [
+        "talk.srt, line 2",
+        "talk.srt, line 7",
+    ]
+    vtt = (
+        "WEBVTT\n\nNOTE x\n\nintro\n00:00:01.000 --> 00:00:02.000\nhi\n\n00:00:03.000 --> 00:00:04.000\nho\n"
+    )
+    assert [c.location for c in parse_subtitles(vtt, "vtt", name="talk.vtt").cues] == [
+        "talk.vtt, line 6",
+        "talk.vtt, line 9",
+    ]
 
 
 @pytest.mark.parametrize(
     ("name", "text"),
     [
-        ("talk.vtt", "WEBVTT\n\n00:00:01.000 --> 00:00:02.000\nHi\n\n00:00:03.000 --> 00:00:03.000\nBlink\n\n00:00:05.000 --> 00:00:06.000\nBye\n"),
-        ("talk.srt", "1\n00:00:01,000 --> 00:00:02,000\nHi\n\n2\n00:00:03,000 --> 00:00:03,000\nBlink\n\n3\n00:00:05,000 --> 00:00:06,000\nBye\n"),
+        (
+            "talk.vtt",
+            "WEBVTT\n\n00:00:01.000 --> 00:00:02.000\nHi\n\n00:00:03.000 --> 00:00:03.000\nBlink\n\n00:00:05.000 --> 00:00:06.000\nBye\n",
+        ),
+        (
+            "talk.srt",
+            "1\n00:00:01,000 --> 00:00:02,000\nHi\n\n2\n00:00:03,000 --> 00:00:03,000\nBlink\n\n3\n00:00:05,000 --> 00:00:06,000\nBye\n",
+        ),
     ],
 )
-def test_a_zero_length_cue_is_kept_but_counts_as_no_dialogue_time(tmp_path: Path, name: str, text: str) -> None:
+def test_a_zero_length_cue_is_kept_but_counts_as_no_dialogue_time(
+    tmp_path: Path, name: str, text: str
+) -> None:
     path = tmp_path / name
     path.write_text(text, encoding="utf-8")
     # the reference readers keep it (the W3C WebVTT parsing rules, from memory, do not compare
     # start and end), so the track keeps it too and a merge passes it through untouched
-    reference = [c.raw_text for c in webvtt.read(str(path)).captions] if name.endswith(".vtt") else [s.content for s in srt.parse(text)]
+    reference = (
+        [c.raw_text for c in webvtt.read(str(path)).captions]
+        if name.endswith(".vtt")
+        else [s.content for s in srt.parse(text)]
+    )
     track = read_track(path)
     assert [c.text for c in track.cues] == reference == ["Hi", "Blink", "Bye"]
     assert (track.cues[1].start_ms, track.cues[1].end_ms) == (3000, 3000)

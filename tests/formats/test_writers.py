@@ -66,10 +66,24 @@ def test_srt_parses_back_with_srt_library() -> None:
 
 
 @settings(max_examples=200, deadline=None)
-@given(st.lists(st.tuples(st.integers(0, 10**8), st.integers(1, 10**6), st.text(st.characters(blacklist_categories=("Cs", "Cc", "Zl", "Zp")), min_size=1, max_size=40)), max_size=8))
+@given(
+    st.lists(
+        st.tuples(
+            st.integers(0, 10**8),
+            st.integers(1, 10**6),
+            st.text(st.characters(blacklist_categories=("Cs", "Cc", "Zl", "Zp")), min_size=1, max_size=40),
+        ),
+        max_size=8,
+    )
+)
 def test_round_trip_through_reference_parsers(items: list[tuple[int, int, str]]) -> None:
-    cues = [Cue(start, start + length, (text.strip() or "x",), (f"e{i}",)) for i, (start, length, text) in enumerate(sorted(items))]
+    cues = [
+        Cue(start, start + length, (text.strip() or "x",), (f"e{i}",))
+        for i, (start, length, text) in enumerate(sorted(items))
+    ]
     parsed = webvtt.from_buffer(io.StringIO(vtt_dumps(cues)))
     assert [(c.start, c.end) for c in parsed] == [(timestamp(c.start_ms), timestamp(c.end_ms)) for c in cues]
     back = list(srt.parse(WRITERS["srt"](cues, "")))
-    assert [(int(s.start / timedelta(milliseconds=1)), int(s.end / timedelta(milliseconds=1))) for s in back] == [(c.start_ms, c.end_ms) for c in cues]
+    assert [
+        (int(s.start / timedelta(milliseconds=1)), int(s.end / timedelta(milliseconds=1))) for s in back
+    ] == [(c.start_ms, c.end_ms) for c in cues]
