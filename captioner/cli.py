@@ -19,6 +19,7 @@ from .arguments import DEFAULT_SIDECAR, build_parser
 from .errors import CaptionerError, OutputError, SubtitleError
 
 if TYPE_CHECKING:
+    from .formats.merge import MergedTrack
     from .formats.subtitles import SubtitleTrack
 
 EXIT_OK, EXIT_SOME_FAILED, EXIT_BAD_INPUT = 0, 1, 2
@@ -73,9 +74,8 @@ def _notices(quiet: bool) -> Callable[[str], None]:
 def _caption(args: argparse.Namespace) -> int:
     from . import packs, pipeline, update
     from .formats import merged_track_path, sound_track_path, write_atomic
-    from .formats.merge import merge_table
     from .formats.subtitles import dialogue_spans, read_track
-    from .report import explain_table, progress_bar
+    from .report import explain_table, merge_summary, merge_table, progress_bar
     from .style import load_style
 
     style = load_style(args.style)
@@ -131,20 +131,22 @@ def _caption(args: argparse.Namespace) -> int:
         print(explain_table(result), file=sys.stderr)
         if merged is not None:
             print(merge_table(merged), file=sys.stderr)
+    if merged is not None:
+        _merge_warnings(merged)
     if output is not None and not updating:
-        counted = (
-            f"{len(result.cues)} cue(s)"
+        say(
+            f"{len(result.cues)} cue(s) written to {output}"
             if merged is None
-            else f"{len(merged.cues)} cue(s), {sum(c.dialogue is not None for c in merged.cues)} of them dialogue,"
+            else f"{output}: {merge_summary(merged)}"
         )
-        say(f"{counted} written to {output}")
     return EXIT_OK
 
 
 def _merge(args: argparse.Namespace) -> int:
     from .formats import sidecar, write_atomic
-    from .formats.merge import dumps_merged, merge_table, merge_tracks, outcomes_json, sound_cues_from_track
+    from .formats.merge import dumps_merged, merge_json, merge_tracks, sound_cues_from_track
     from .formats.subtitles import read_track
+    from .report import merge_summary, merge_table
     from .style import load_style
 
     style = load_style(args.style)
@@ -152,7 +154,10 @@ def _merge(args: argparse.Namespace) -> int:
     _, output = _merged_target(args.output, None, dialogue, args.dialogue_subs, None)
     _refuse_overwrite((output, args.events_json), (args.sound_cues, args.dialogue_subs), force=args.force)
     merged = merge_tracks(dialogue, sound_cues_from_track(read_track(args.sound_cues)), style)
-    note = f"Dialogue of {args.dialogue_subs.name} with the sound captions of {args.sound_cues.name}\nmerged by captioner {__version__}, style {style.name}; review before publishing"
+    note = (
+        f"Dialogue of {args.dialogue_subs.name} with the sound captions of {args.sound_cues.name}\n"
+        f"merged by captioner {__version__}, style {style.name}; review before publishing"
+    )
     text = dumps_merged(merged, note)
     if output is None:
         sys.stdout.write(text)
@@ -164,18 +169,23 @@ def _merge(args: argparse.Namespace) -> int:
             "sound_cues_file": args.sound_cues.name,
             "style": style.name,
             "strategy": style.merge.strategy,
-            "sound_cues": outcomes_json(merged),
+            **merge_json(merged),
         }
         write_atomic(args.events_json, sidecar.dumps(document), force=args.force)
     if args.explain:
         print(merge_table(merged), file=sys.stderr)
-    if output is not None and not args.quiet:
-        dropped = sum(o.action == "dropped" for o in merged.outcomes)
-        print(
-            f"captioner: {len(merged.cues)} cue(s) written to {output}; {dropped} sound cue(s) left out (see --explain)",
-            file=sys.stderr,
-        )
+    _merge_warnings(merged)
+    if output is not None:
+        _notices(args.quiet)(f"{output}: {merge_summary(merged)} (see --explain)")
     return EXIT_OK
+
+
+def _merge_warnings(merged: MergedTrack) -> None:
+    """Each sound left out and each alert placed against the limits: one line, even with --quiet."""
+    from .report import merge_warnings
+
+    for line in merge_warnings(merged):
+        print(f"captioner: warning: {line}", file=sys.stderr)
 
 
 def _merged_target(

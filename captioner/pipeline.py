@@ -134,14 +134,14 @@ class Drafts:
     def events_json(self) -> str:
         """The JSON sidecar: every event, decision and score curve, plus the merge outcome."""
         from .formats import sidecar
-        from .formats.merge import outcomes_json
+        from .formats.merge import merge_json
 
         document = sidecar.sidecar(self.result, self.vocabulary)
         if self.merged is not None:
             document["merge"] = {
                 "dialogue": self.dialogue_name,
                 "strategy": self.result.style.merge.strategy,
-                "sound_cues": outcomes_json(self.merged),
+                **merge_json(self.merged),
             }
         return sidecar.dumps(document)
 
@@ -166,7 +166,8 @@ def draft_outputs(
     )
     merged, merged_text = None, None
     if merge_with is not None:
-        merged = merge_tracks(merge_with, result.cues, result.style)
+        priorities = {e.event_id: e.priority for e in result.events}
+        merged = merge_tracks(merge_with, result.cues, result.style, priorities=priorities)
         drops = {d.event_id: d for d in dropped_decisions(merged)}
         result = dataclasses.replace(
             result, decisions=tuple(drops.get(d.event_id, d) for d in result.decisions)
