@@ -32,7 +32,8 @@ from ..style import Style
 from . import srt as srt_writer
 from . import webvtt as vtt_writer
 from .placement import ACTIONS, Board, MergedCue, SoundOutcome, pieces
-from .subtitles import SubtitleCue, SubtitleFormat, SubtitleTrack, blocks, parse_subtitles, plain_lines
+from .subtitles import SubtitleCue, SubtitleFormat, SubtitleTrack, parse_subtitles, plain_lines
+from .textblocks import blocks
 
 __all__ = [
     "ACTIONS",

@@ -25,6 +25,7 @@ from webvtt.errors import MalformedCaptionError, MalformedFileError
 
 from ..errors import SubtitleError
 from ..events import Span
+from .textblocks import LINE_END, BlockSpan, Source, block_span, line_spans, newline_of
 
 SubtitleFormat = Literal["vtt", "srt"]
 _FIX = "fix that line or export the file again"
@@ -35,26 +36,6 @@ _TAG = re.compile(r"<[^>]*>|\{\\[^}]*\}")  # WebVTT/SRT inline tags and SRT {\an
 _SRT_STAMP = r"\d+[,.:，．。：]\d+[,.:，．。：]\d+[,.:，．。：]\d*"
 _SRT_TIMING = re.compile(rf"^\s*{_SRT_STAMP} *-[ -] *> *{_SRT_STAMP}")
 _SRT_PARTS = re.compile(r"(\d+)[,.:，．。：](\d+)[,.:，．。：](\d+)[,.:，．。：](\d*)")
-_LINE_END = re.compile(r"\r\n|\r|\n")
-
-
-@dataclass(frozen=True, slots=True)
-class BlockSpan:
-    """Character offsets of one cue block in the decoded file: where the block starts, where
-    its timing line starts, and where its last text line ends (before the line ending)."""
-
-    start: int
-    timing: int
-    text_end: int
-
-
-@dataclass(frozen=True, slots=True)
-class Source:
-    """A subtitle file's text as written, so a merge can keep it byte for byte."""
-
-    text: str  # decoded, without the byte-order mark
-    bom: bool
-    newline: str  # the file's first line ending, used for every line a merge adds
 
 
 @dataclass(frozen=True, slots=True)
@@ -168,13 +149,13 @@ def parse_subtitles(
         SubtitleError: malformed content or a cue that ends before it starts, naming `name`
             and the line.
     """
-    source = Source(text.removeprefix("\ufeff"), bom or text.startswith("\ufeff"), _newline(text))
+    source = Source(text.removeprefix("\ufeff"), bom or text.startswith("\ufeff"), newline_of(text))
     text = source.text
-    rows = _rows(text)
+    rows = line_spans(text)
     cues, header = _parse_vtt(name, text) if fmt == "vtt" else (_parse_srt(name, text), ())
     timings = _vtt_timing_rows(text, rows) if fmt == "vtt" else _srt_timing_rows(text, rows, cues)
     cues = [
-        replace(cue, location=_where(name, timings[n] + 1), span=_block_span(text, rows, timings[n]))
+        replace(cue, location=_where(name, timings[n] + 1), span=block_span(text, rows, timings[n]))
         if n < len(timings)
         else replace(cue, location=name)
         for n, cue in enumerate(cues)
@@ -229,60 +210,6 @@ def _where(name: str, line: int) -> str:
     return f"{name}, line {line}" if line > 0 else name
 
 
-def _newline(text: str) -> str:
-    r"""The first line ending of the text (CRLF, LF or CR), LF when it has none.
-
-    >>> _newline("WEBVTT\r\n\r\n"), _newline("WEBVTT")
-    ('\r\n', '\n')
-    """
-    found = _LINE_END.search(text)
-    return found.group() if found else "\n"
-
-
-def _rows(text: str) -> list[tuple[int, int]]:
-    """(start, end) of every line's content, split at CRLF, LF or CR (the WebVTT line endings)."""
-    rows, start = [], 0
-    for end in _LINE_END.finditer(text):
-        rows.append((start, end.start()))
-        start = end.end()
-    if start < len(text):
-        rows.append((start, len(text)))
-    return rows
-
-
-def blocks(text: str) -> list[tuple[int, int]]:
-    r"""(start, end) of every block: a run of non-blank lines, end before its last line ending.
-
-    >>> blocks("WEBVTT\r\n\r\nNOTE a\r\nb\r\n")
-    [(0, 6), (10, 19)]
-    """
-    found: list[tuple[int, int]] = []
-    previous_blank = True
-    for start, end in _rows(text):
-        if not text[start:end].strip():
-            previous_blank = True
-        elif previous_blank:
-            found.append((start, end))
-            previous_blank = False
-        else:
-            found[-1] = (found[-1][0], end)
-    return found
-
-
-def _block_span(text: str, rows: Sequence[tuple[int, int]], timing: int) -> BlockSpan:
-    """The block around the timing line at row `timing`: an identifier or counter line just
-    above it belongs to it, and its text runs to the next blank line."""
-
-    def blank(row: int) -> bool:
-        return not text[rows[row][0] : rows[row][1]].strip()
-
-    first = timing - 1 if timing > 0 and not blank(timing - 1) else timing
-    last = timing
-    while last + 1 < len(rows) and not blank(last + 1):
-        last += 1
-    return BlockSpan(rows[first][0], rows[timing][0], rows[last][1])
-
-
 def _vtt_timing_rows(text: str, rows: Sequence[tuple[int, int]]) -> list[int]:
     # In a well-formed WebVTT file every line holding "-->" is a cue timing line (WebVTT
     # forbids the arrow in cue text and comments), so the n-th such line is the n-th cue's.
@@ -313,7 +240,7 @@ def _trade_reading(cue: SubtitleCue, text: str) -> SubtitleCue:
     the line: the srt library reads the digits as milliseconds (3.005 s)."""
     if cue.span is None:
         return cue
-    timing = _LINE_END.split(text[cue.span.timing : cue.span.text_end + 1], maxsplit=1)[0]
+    timing = LINE_END.split(text[cue.span.timing : cue.span.text_end + 1], maxsplit=1)[0]
     stamps = _SRT_PARTS.findall(timing)[:2]
     if len(stamps) != 2:
         return cue
