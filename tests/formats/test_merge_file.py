@@ -13,6 +13,7 @@ import io
 import json
 import re
 from datetime import timedelta
+from functools import cache
 from pathlib import Path
 
 import pytest
@@ -26,12 +27,21 @@ from captioner.cues import Cue
 from captioner.formats.merge import MERGE_HEADING, MergedTrack, dumps_merged, merge_tracks, sound_priority
 from captioner.formats.subtitles import SubtitleFormat, parse_subtitles, read_track
 from captioner.report import merge_warnings
-from captioner.style import load_style, replace
+from captioner.style import Style, load_style, replace
 
 EOL = r"(?:\r\n|\n|\r(?!\n))"  # W3C WebVTT line terminators: CRLF, LF, CR
 BLOCK_BREAK = re.compile(rf"({EOL}(?:[ \t]*{EOL})+)")  # a line ending, then blank lines
 SOUNDS = [("[door slams]", 3), ("[dog barking]", 3), ("[phone ringing]", 4), ("[smoke alarm beeping]", 5)]
-WORDS = ["tea", "now", "Ready?", "café", "<i>wait</i>", "&amp;", "<v A>hi</v>", "well,"]
+# cue texts (flat choices keep generation fast): tags, entities, accents, one or two lines
+VTT_TEXTS = [
+    "tea",
+    "Ready? <i>wait</i>",
+    "café &amp; toast",
+    "<v A>hi</v>\nnow, well,",
+    "Morning.\nTea?",
+    "<b>no</b>",
+]
+SRT_TEXTS = ["tea", "Ready? <i>wait</i>", "café & toast", "now, well,\nReady?", "Morning.\nTea?"]
 
 
 def stamp(ms: int, comma: bool = False) -> str:
@@ -82,15 +92,18 @@ def remove_sound(merged: bytes, fmt: SubtitleFormat) -> bytes:
     return (codecs.BOM_UTF8 if bom else b"") + ("".join(out) + trailing).encode("utf-8")
 
 
+@cache
+def style_for(preset: str, strategy: str) -> Style:
+    return replace(load_style(preset), "merge", strategy=strategy)  # read once: YAML parsing is slow
+
+
 def merge_bytes(
     raw: bytes, fmt: SubtitleFormat, sounds: list[Cue], priorities: dict[str, int], strategy: str = "position"
 ) -> tuple[bytes, MergedTrack]:
     track = parse_subtitles(
         raw.decode("utf-8-sig"), fmt, name=f"dialogue.{fmt}", bom=raw.startswith(codecs.BOM_UTF8)
     )
-    merged = merge_tracks(
-        track, sounds, replace(load_style("brackets"), "merge", strategy=strategy), priorities=priorities
-    )
+    merged = merge_tracks(track, sounds, style_for("brackets", strategy), priorities=priorities)
     return dumps_merged(merged, note="merged").encode("utf-8"), merged
 
 
@@ -124,15 +137,7 @@ def vtt_file(draw: st.DrawFn) -> tuple[bytes, list[tuple[int, int, str]]]:
     for number in range(draw(st.integers(0, 10))):
         clock += draw(st.integers(0, 5000))
         duration = draw(st.integers(400, 6000))
-        text = "\n".join(
-            draw(
-                st.lists(
-                    st.lists(st.sampled_from(WORDS), min_size=1, max_size=5).map(" ".join),
-                    min_size=1,
-                    max_size=2,
-                )
-            )
-        )
+        text = draw(st.sampled_from(VTT_TEXTS))
         identifier = draw(st.sampled_from(["", f"line{number}\n"]))
         setting = draw(st.sampled_from(["", " line:0", " align:start"]))
         if draw(st.booleans()) and draw(st.booleans()):
@@ -156,17 +161,7 @@ def srt_file(draw: st.DrawFn) -> tuple[bytes, list[tuple[int, int, str]]]:
     for number in range(1, draw(st.integers(1, 10)) + 1):
         clock += draw(st.integers(0, 5000))
         duration = draw(st.integers(400, 6000))
-        text = "\n".join(
-            draw(
-                st.lists(
-                    st.lists(
-                        st.sampled_from(["tea", "now", "Ready?", "café", "well,"]), min_size=1, max_size=5
-                    ).map(" ".join),
-                    min_size=1,
-                    max_size=2,
-                )
-            )
-        )
+        text = draw(st.sampled_from(SRT_TEXTS))
         subtitles.append(
             srt.Subtitle(
                 number, timedelta(milliseconds=clock), timedelta(milliseconds=clock + duration), text
@@ -264,10 +259,9 @@ def test_no_alert_is_ever_missing_whatever_the_dialogue_density(
         )
     )
     sounds, priorities = data.draw(sounds_with_priorities(max_cues=12))
-    style = replace(
-        load_style(data.draw(st.sampled_from(["brackets", "capitals"]))),
-        "merge",
-        strategy=data.draw(st.sampled_from(["position", "combine", "move", "drop"])),
+    style = style_for(
+        data.draw(st.sampled_from(["brackets", "capitals"])),
+        data.draw(st.sampled_from(["position", "combine", "move", "drop"])),
     )
     track = parse_subtitles(text, fmt)
     merged = merge_tracks(track, sounds, style, priorities=priorities)
