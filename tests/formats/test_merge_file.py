@@ -522,3 +522,55 @@ def test_merging_a_merged_srt_again_adds_nothing_twice_and_says_so(tmp_path: Pat
         f"captioner: warning: 2 sound cue(s) already in {tmp_path / 'scene.srt'} with the same text and time "
         "(from an earlier merge, first at 00:00:01.200) were not added again"
     ]
+
+
+def test_caption_merge_rates_each_sound_by_its_events_not_its_wording(tmp_path: Path) -> None:
+    from captioner.events import SoundEvent
+    from captioner.pipeline import Captioned, draft_outputs
+    from captioner.policy import Decision
+    from captioner.vocabulary import Kind
+
+    def heard(event_id: str, phrase: str, priority: int, start_ms: int) -> SoundEvent:
+        return SoundEvent(
+            event_id,
+            "x",
+            "X",
+            phrase,
+            phrase,
+            Kind.TRANSIENT,
+            priority,
+            None,
+            start_ms,
+            start_ms + 2000,
+            0.9,
+            0.5,
+            -20,
+            -40,
+        )
+
+    # wording alone would rate both as alerts (the vocabulary knows neither); the events say 2 and 5
+    events = (heard("e0001", "tuba playing", 2, 5000), heard("e0002", "kettle whistling", 5, 9000))
+    cues = tuple(Cue(e.start_ms, e.end_ms, (f"[{e.phrase}]",), (e.event_id,)) for e in events)
+    run = Captioned(
+        tmp_path / "scene.wav",
+        style_for("brackets", "move"),
+        "test",
+        None,  # type: ignore[arg-type]  # the score track is not needed to draft the texts
+        (),
+        "scene.srt",
+        events,
+        tuple(Decision(e.event_id, True, "kept", "") for e in events),
+        cues,
+    )
+    busy = parse_subtitles(srt_bytes(BUSY).decode("utf-8"), "srt", name="scene.srt")
+    drafts = draft_outputs(run, None, "srt", merge_with=busy, dialogue_name="scene.srt")  # type: ignore[arg-type]
+    assert drafts.merged is not None and drafts.merged_text is not None
+    assert {o.event_ids[0]: o.action for o in drafts.merged.outcomes} == {
+        "e0001": "dropped",
+        "e0002": "overlapping",
+    }
+    assert "[kettle whistling]" in drafts.merged_text and "[tuba playing]" not in drafts.merged_text
+    assert [d.rule for d in drafts.result.decisions] == [
+        "layout",
+        "kept",
+    ]  # the sidecar says why the tuba went
