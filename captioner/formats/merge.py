@@ -146,62 +146,87 @@ def dumps_merged(track: MergedTrack, note: str = "") -> str:
     """The dialogue file's text with the sound cues written in (WebVTT: and a merge NOTE)."""
     source = track.dialogue.source
     assert source is not None  # merge_tracks gives every track a source
-    text, newline, fmt = source.text, source.newline, track.format
-    found = blocks(text)
-    file_order = sorted(
-        (c.dialogue for c in track.cues if c.dialogue is not None and c.dialogue.span is not None),
-        key=lambda d: d.span.start if d.span else 0,
-    )
-    ends = [d.span.text_end for d in file_order if d.span]
-    eof = found[-1][1] if found else 0
-    # (offset, order, replaced up to, what): order -1/0 goes before the block at offset (the
-    # merge NOTE, then sound blocks), 1 is a dialogue cue's counter line (None), 2 sound lines
-    # after a cue's text, 3/4 after the last block (the NOTE, then sound blocks).
-    edits: list[tuple[int, int, int, str | MergedCue | None]] = []
-    if fmt == "vtt":
-        heading = MERGE_HEADING + ("\n" + vtt_writer.note_text(note) if note.strip() else "")
-        edits.append((found[1][0], -1, found[1][0], heading) if len(found) > 1 else (eof, 3, eof, heading))
-    for d, merged in ((c.dialogue, c) for c in track.cues if c.dialogue is not None and c.dialogue.span):
-        span = d.span
-        assert span is not None
-        counter_end = span.start + len(text[span.start : span.timing].rstrip("\r\n"))
-        edits.append((span.start, 1, counter_end, None))
-        if merged.sound_lines:
-            lines = [vtt_writer.escape(x) if fmt == "vtt" else x for x in merged.sound_lines]
-            edits.append((span.text_end, 2, span.text_end, "".join(newline + x for x in lines)))
-    for cue in (c for c in track.cues if c.dialogue is None):
-        later = next((n for n, d in enumerate(file_order) if d.start_ms > cue.start_ms), None)
-        if later is None:
-            edits.append((eof, 4, eof, cue))
-        elif later == 0:
-            start = file_order[0].span.start if file_order[0].span else 0
-            edits.append((start, 0, start, cue))
-        else:
-            start = next(b for b, _ in found if b > ends[later - 1])
-            edits.append((start, 0, start, cue))
-    taken = {d.identifier for d in file_order if d.identifier}
+    text, newline = source.text, source.newline
+    taken = {c.dialogue.identifier for c in track.cues if c.dialogue is not None and c.dialogue.identifier}
     parts, cursor, counter = ["\ufeff" if source.bom else ""], 0, 0
-    for offset, order, until, item in sorted(edits, key=lambda e: (e[0], e[1])):
-        parts.append(text[cursor:offset])
-        cursor = max(cursor, offset)
-        if isinstance(item, str) and order == 2:
-            parts.append(item)
+    for edit in sorted(_edits(track, note), key=lambda e: (e.offset, e.order)):
+        parts.append(text[cursor : edit.offset])
+        cursor = edit.offset
+        if edit.order == _ADDED_LINES:
+            assert isinstance(edit.item, str)
+            parts.append(edit.item)
             continue
-        if item is None:  # a dialogue cue's counter: SRT numbers every cue in merged order
+        if edit.item is None:  # a dialogue cue: SRT numbers every cue in the merged order
             counter += 1
-            if fmt == "srt" and until > offset and text[offset:until].strip().isdigit():
+            if track.format == "srt" and text[edit.offset : edit.until].strip().isdigit():
                 parts.append(str(counter))
-                cursor = until
+                cursor = edit.until
             continue
-        if isinstance(item, MergedCue):
+        if isinstance(edit.item, MergedCue):
             counter += 1
-            block = _sound_block(item, fmt, counter, taken)
+            block = _sound_block(edit.item, track.format, counter, taken)
         else:
-            block = item
+            block = edit.item
         block = block.replace("\n", newline)
-        parts.append(newline * 2 + block if order >= 3 else block + newline * 2)
+        parts.append(newline * 2 + block if edit.order >= _AFTER_LAST else block + newline * 2)
     parts.append(text[cursor:])
     return "".join(parts)
+
+
+@dataclass(frozen=True, slots=True)
+class _Edit:
+    """One change to the dialogue file's text: insert at `offset`, or (a cue's counter line,
+    `item` None) replace up to `until`. Edits at one offset apply in `order`."""
+
+    offset: int
+    order: int
+    item: str | MergedCue | None
+    until: int = 0
+
+
+_BEFORE_NOTE, _BEFORE, _COUNTER, _ADDED_LINES, _AFTER_LAST, _AFTER_LAST_SOUND = range(-1, 5)
+
+
+def _edits(track: MergedTrack, note: str) -> list[_Edit]:
+    """Where the merge NOTE, each sound cue and each added sound line go in the dialogue text.
+
+    A sound cue goes before the first dialogue cue (in file order) that starts after it, right
+    after the block of the cue before that one, so a NOTE above a cue stays with its cue; a
+    sound after every dialogue cue goes after the last block.
+    """
+    assert track.dialogue.source is not None
+    text, fmt = track.dialogue.source.text, track.format
+    found = blocks(text)
+    last = found[-1][1] if found else 0
+    edits = []
+    if fmt == "vtt":
+        heading = MERGE_HEADING + ("\n" + vtt_writer.note_text(note) if note.strip() else "")
+        first = found[1][0] if len(found) > 1 else None  # the block after the WEBVTT header
+        edits.append(
+            _Edit(first, _BEFORE_NOTE, heading) if first is not None else _Edit(last, _AFTER_LAST, heading)
+        )
+    in_file = sorted(
+        ((c.dialogue.span, c) for c in track.cues if c.dialogue is not None and c.dialogue.span is not None),
+        key=lambda pair: pair[0].start,
+    )
+    for span, cue in in_file:
+        counter_end = span.start + len(text[span.start : span.timing].rstrip("\r\n"))
+        edits.append(_Edit(span.start, _COUNTER, None, counter_end))
+        if cue.sound_lines:
+            lines = [vtt_writer.escape(x) if fmt == "vtt" else x for x in cue.sound_lines]
+            edits.append(
+                _Edit(span.text_end, _ADDED_LINES, "".join(track.dialogue.source.newline + x for x in lines))
+            )
+    for sound in (c for c in track.cues if c.dialogue is None):
+        later = next((n for n, (_, d) in enumerate(in_file) if d.start_ms > sound.start_ms), None)
+        if later is None:
+            edits.append(_Edit(last, _AFTER_LAST_SOUND, sound))
+        elif later == 0:
+            edits.append(_Edit(in_file[0][0].start, _BEFORE, sound))
+        else:
+            previous_end = in_file[later - 1][0].text_end
+            edits.append(_Edit(next(b for b, _ in found if b > previous_end), _BEFORE, sound))
+    return edits
 
 
 def dropped_decisions(track: MergedTrack) -> tuple[Decision, ...]:
