@@ -74,6 +74,7 @@ def _notices(quiet: bool) -> Callable[[str], None]:
 def _caption(args: argparse.Namespace) -> int:
     from . import packs, pipeline, update
     from .formats import merged_track_path, sound_track_path, write_atomic
+    from .formats.merge import check_dialogue
     from .formats.subtitles import dialogue_spans, read_track
     from .report import explain_table, merge_summary, merge_table, progress_bar
     from .style import load_style
@@ -85,6 +86,7 @@ def _caption(args: argparse.Namespace) -> int:
     if args.merge and track is None:
         raise SubtitleError("--merge", "needs the dialogue track to merge into", "add --dialogue SUBS")
     if args.merge and track is not None:
+        check_dialogue(track)  # before the classifier runs
         fmt, output = _merged_target(
             args.output, args.format, track, args.dialogue, merged_track_path(args.input, track.format)
         )

@@ -40,6 +40,7 @@ __all__ = [
     "MergedCue",
     "MergedTrack",
     "SoundOutcome",
+    "check_dialogue",
     "dropped_decisions",
     "dumps_merged",
     "merge_json",
@@ -342,8 +343,13 @@ def _already_there(dialogue: SubtitleTrack, cue: Cue, tolerance_ms: int) -> Soun
     return None
 
 
-def _refuse_sound_tracks(dialogue: SubtitleTrack, sounds: Sequence[Cue], tolerance_ms: int) -> None:
-    """Refuse a dialogue file that is captioner's own sound track or merged track."""
+def check_dialogue(dialogue: SubtitleTrack) -> None:
+    """Refuse a dialogue file that is captioner's own sound track or merged track (by its
+    record or merge NOTE), before any work is done.
+
+    Raises:
+        SubtitleError: naming the file and the block found.
+    """
     mark = _OURS.search(dialogue.source.text) if dialogue.source else None
     if mark:
         raise SubtitleError(
@@ -351,6 +357,11 @@ def _refuse_sound_tracks(dialogue: SubtitleTrack, sounds: Sequence[Cue], toleran
             f"holds sound captions captioner wrote (its '{mark.group(1)}' block), not only dialogue",
             "merge into the original dialogue subtitles instead",
         )
+
+
+def _refuse_sound_tracks(dialogue: SubtitleTrack, sounds: Sequence[Cue], tolerance_ms: int) -> None:
+    """Refuse a dialogue file that is captioner's own track, or whose cues are the sound cues."""
+    check_dialogue(dialogue)
     if dialogue.cues and all(
         any(
             abs(d.start_ms - s.start_ms) <= tolerance_ms

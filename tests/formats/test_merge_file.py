@@ -574,3 +574,22 @@ def test_caption_merge_rates_each_sound_by_its_events_not_its_wording(tmp_path: 
         "layout",
         "kept",
     ]  # the sidecar says why the tuba went
+
+
+def test_caption_merge_refuses_a_sound_track_as_dialogue_before_any_work(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    from captioner.update import recorded_vtt
+
+    sounds = tmp_path / "scene.sounds.vtt"
+    sounds.write_text(
+        recorded_vtt([Cue(1000, 3000, ("[door slams]",), ("e0001",))], "drafted"), encoding="utf-8"
+    )
+    out = tmp_path / "scene.merged.vtt"
+    # the media file does not even exist: the refusal comes first
+    status = main(
+        ["caption", str(tmp_path / "scene.wav"), "--dialogue", str(sounds), "--merge", "-o", str(out)]
+    )
+    err = capsys.readouterr().err.splitlines()
+    assert status == 2 and not out.exists() and len(err) == 1
+    assert f"{sounds}: holds sound captions captioner wrote (its 'NOTE captioner record' block)" in err[0]
