@@ -98,6 +98,32 @@ def build_parser() -> argparse.ArgumentParser:
         help="folder already holding the pack's wheel (offline install)",
     )
 
+    teach = commands.add_parser(
+        "teach",
+        help="teach captioner sounds of your own: train concept heads from labelled clips",
+        description=(
+            "Train one head per concept over the classifier's embedding from your labelled clips, print"
+            " each head's cross-validated AUC and average precision, and write a head file plus a pack"
+            " manifest that `--model` accepts."
+        ),
+        epilog=(
+            "examples:\n  captioner teach my_sounds/ -o my_sounds.heads.npz    # my_sounds/gate_squeak/*.wav ...\n"
+            "  captioner teach labels.csv -o studio.heads.npz        # rows: file,onset,offset,concept\n"
+            "  captioner caption take1.mp4 --model my_sounds.pack.yaml"
+        ),
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    teach.add_argument(
+        "source",
+        type=Path,
+        help="a folder with one sub-folder of clips per concept (_other/: clips that are none), or a CSV",
+    )
+    teach.add_argument("-o", "--output", type=Path, required=True, help="head file to write (.heads.npz)")
+    teach.add_argument("--model", default=None, help="pack to extend (default: yamnet-int8)")
+    teach.add_argument("--folds", type=int, default=5, help="cross-validation folds (default: 5)")
+    teach.add_argument("--force", action="store_true", help="replace existing outputs")
+    teach.add_argument("--quiet", action="store_true", help="no progress lines")
+
     merge = commands.add_parser(
         "merge",
         help="fold a sound-caption track into a dialogue subtitle track, every dialogue cue unchanged",

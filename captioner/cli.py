@@ -290,6 +290,58 @@ def _models(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def _teach(args: argparse.Namespace) -> int:
+    from . import packs
+    from .fitting import report_table, train_heads
+    from .formats import write_atomic
+    from .heads import save_heads
+    from .style import load_style
+    from .teach import TeachError, build_training_set, check_clips, read_folder, read_label_csv
+
+    head_path: Path = args.output
+    manifest_path = head_path.with_name(
+        head_path.name.removesuffix(".npz").removesuffix(".heads") + ".pack.yaml"
+    )
+    for target in (head_path, manifest_path):
+        if target.exists() and not args.force:
+            raise OutputError(target, "already exists", "pass --force to replace it, or choose another -o")
+    if args.folds < 2:
+        raise TeachError(f"--folds {args.folds}", "needs at least 2 folds", "pass --folds 5")
+    source: Path = args.source
+    if not source.exists():
+        raise TeachError(source, "not found", "pass a folder of clips or a CSV of labels")
+    clips = read_label_csv(source) if source.is_file() else read_folder(source)
+    say = _notices(args.quiet)
+    pack = packs.load_pack(args.model or packs.DEFAULT_PACK, cache=packs.cache_root(), say=say)
+    concepts = check_clips(clips, pack.vocabulary.concepts(), source)
+    detection = load_style("brackets").detection
+    data = build_training_set(
+        clips,
+        concepts,
+        pack,
+        hop_ms=detection.patch_hop_ms,
+        level_spread_db=detection.level_spread_db,
+        say=say,
+    )
+    heads, reports = train_heads(
+        data, folds=args.folds, info={"source": source.name, "clips": len(clips)}, say=say
+    )
+    print(report_table(reports))
+    temporary = head_path.with_name(f".{head_path.name}.tmp")
+    save_heads(temporary, heads)
+    digest = packs.sha256_of(temporary.read_bytes())
+    os.replace(temporary, head_path)
+    base = pack.manifest.name if args.model is None or args.model in packs.builtin_packs() else args.model
+    manifest = (
+        f"# Written by captioner teach: the {base} pack plus heads for {', '.join(concepts)}.\n"
+        f"name: {manifest_path.name.removesuffix('.pack.yaml')}\nextends: {base}\n"
+        f"heads:\n  - file: {head_path.name}\n    sha256: {digest}\n"
+    )
+    write_atomic(manifest_path, manifest, force=True)
+    say(f"wrote {head_path} and {manifest_path}; use it with --model {manifest_path}")
+    return EXIT_OK
+
+
 def _evaluate(args: argparse.Namespace) -> int:
     from . import packs
     from .evaluation import evaluate_captions, quality_json, quality_table
@@ -372,6 +424,7 @@ _RUNNERS: dict[str, Callable[[argparse.Namespace], int]] = {
     "evaluate": _evaluate,
     "models": _models,
     "styles": _styles,
+    "teach": _teach,
 }
 
 

@@ -110,6 +110,7 @@ def caption_file(
             pack.manifest.frontend,
             hop_ms=style.detection.patch_hop_ms,
             level_spread_db=style.detection.level_spread_db,
+            heads=pack.heads,
             on_progress=progress,
         )
     spans, events, decisions, cues = caption_track(track, pack.vocabulary, style, dialogue=dialogue)
