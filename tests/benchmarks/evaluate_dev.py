@@ -90,12 +90,12 @@ def write_captions(folder: Path, cues_by_stem: dict[str, tuple[Any, ...]]) -> No
 
 
 def caption_set(
-    eval_dir: Path, pack: packs.LoadedPack, style: Style
+    eval_dir: Path, pack: packs.LoadedPack, style: Style, media: str = "wav"
 ) -> tuple[dict[str, ScoreTrack], dict[str, tuple[Any, ...]], float]:
-    """Caption every devNN.wav through the real pipeline; tracks, cues and seconds spent."""
+    """Caption every devNN.wav (or .mp4) through the real pipeline; tracks, cues and seconds spent."""
     tracks, cues = {}, {}
     started = time.perf_counter()
-    for clip in sorted(eval_dir.glob("dev*.wav")):
+    for clip in sorted(eval_dir.glob(f"dev*.{media}")):
         result = pipeline.caption_file(clip, pack, style)
         tracks[clip.stem], cues[clip.stem] = result.track, result.cues
     return tracks, cues, time.perf_counter() - started
@@ -147,6 +147,9 @@ def main(argv: list[str] | None = None) -> int:
     )
     parser.add_argument("--hops", default="", help="also run these patch hops in ms, e.g. 480,240,160")
     parser.add_argument("--keep", type=Path, help="write the caption files of every run under this folder")
+    parser.add_argument(
+        "--media", choices=("wav", "mp4"), default="wav", help="which files of the set to caption"
+    )
     args = parser.parse_args(argv)
     eval_dir: Path = args.eval_dir
     if not (eval_dir / "score.py").is_file():
@@ -156,7 +159,7 @@ def main(argv: list[str] | None = None) -> int:
     style = load_style(args.style)
     work = args.keep or Path(tempfile.mkdtemp(prefix="captioner-eval-"))
 
-    tracks, cues, seconds = caption_set(eval_dir, pack, style)
+    tracks, cues, seconds = caption_set(eval_dir, pack, style, args.media)
     write_captions(work / "default", cues)
     report = score(eval_dir, work / "default")
     print(
@@ -186,7 +189,7 @@ def main(argv: list[str] | None = None) -> int:
         _, spread_cues, spread_seconds = (
             (tracks, cues, seconds)
             if spread == style.detection.level_spread_db
-            else caption_set(eval_dir, pack, variant)
+            else caption_set(eval_dir, pack, variant, args.media)
         )
         folder = work / f"spread-{spread:g}"
         write_captions(folder, spread_cues)
@@ -205,7 +208,7 @@ def main(argv: list[str] | None = None) -> int:
         )
         for hop in hops:
             variant = replace(style, "detection", patch_hop_ms=hop)
-            _, hop_cues, hop_seconds = caption_set(eval_dir, pack, variant)
+            _, hop_cues, hop_seconds = caption_set(eval_dir, pack, variant, args.media)
             folder = work / f"hop-{hop}"
             write_captions(folder, hop_cues)
             o = score(eval_dir, folder)["overall"]
