@@ -231,17 +231,23 @@ class _Handler(BaseHTTPRequestHandler):
             return
         try:
             request = json.loads(self.rfile.read(length).decode("utf-8"))
-            text, based_on = str(request["text"]), str(request["version"])
+            text, based_on, count = str(request["text"]), str(request["version"]), int(request["cues"])
         except (ValueError, KeyError, TypeError):
-            self._refuse(HTTPStatus.BAD_REQUEST, "a save holds the track's text and the version it edits")
+            self._refuse(
+                HTTPStatus.BAD_REQUEST,
+                "a save holds the track's text, its cue count and the version it edits",
+            )
             return
         with self.server.save_lock:
-            status, answer = save_track(self.server.site.inputs, text, based_on)
+            status, answer = save_track(self.server.site.inputs, text, based_on, count)
         self._send(status, json.dumps(answer).encode(), "application/json")
 
 
-def save_track(inputs: ReviewInputs, text: str, based_on: str) -> tuple[HTTPStatus, dict[str, Any]]:
-    """Check and write the page's track over the caption file; the status and a JSON answer."""
+def save_track(
+    inputs: ReviewInputs, text: str, based_on: str, count: int
+) -> tuple[HTTPStatus, dict[str, Any]]:
+    """Check and write the page's track (which holds `count` cues) over the caption file;
+    the HTTP status and a JSON answer."""
     path = inputs.captions_path
     try:
         on_disk = _track_text(inputs)
@@ -258,6 +264,10 @@ def save_track(inputs: ReviewInputs, text: str, based_on: str) -> tuple[HTTPStat
     except CaptionerError as exc:
         return HTTPStatus.BAD_REQUEST, {
             "error": f"the edited track does not parse ({exc}); nothing was saved"
+        }
+    if len(track.cues) != count:
+        return HTTPStatus.BAD_REQUEST, {
+            "error": f"the edited track reads back as {len(track.cues)} cue(s), not {count}; nothing was saved"
         }
     if fmt == "vtt" and read_record(text) != read_record(on_disk):
         return HTTPStatus.BAD_REQUEST, {"error": "the edited track lost its update record; nothing was saved"}

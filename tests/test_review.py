@@ -19,6 +19,7 @@ from collections.abc import Callable, Iterator
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import pytest
 import srt
 import webvtt
@@ -27,7 +28,7 @@ from captioner import review, update
 from captioner.cli import main
 from captioner.cues import Cue
 from captioner.formats.subtitles import parse_subtitles
-from conftest import tone, write_wav
+from conftest import RATE, tone, write_wav
 
 HOSTILE = "<script>alert(1)</script> & -->"
 HOSTILE_VTT = "&lt;script&gt;alert(1)&lt;/script&gt; &amp; --&gt;"  # as a WebVTT file must hold it
@@ -123,7 +124,7 @@ def test_json_for_script_cannot_close_the_script_element() -> None:
 
 def test_page_data_holds_cues_dropped_candidates_and_curves(review_files: dict[str, Path]) -> None:
     inputs = review.load_inputs(review_files["media"], review_files["captions"], review_files["events"])
-    data = review.page_data(inputs, review_files["page"])
+    data = review.page_data(inputs, review.media_link(review_files["media"], review_files["page"]))
     assert [c["text"] for c in data["cues"]] == [
         "[door slams]",
         HOSTILE,
@@ -131,7 +132,10 @@ def test_page_data_holds_cues_dropped_candidates_and_curves(review_files: dict[s
     ]  # entities decoded once
     assert data["media"] == {"src": "../beeps%20%26%20%3Ci%3E.wav", "name": MEDIA_NAME, "kind": "audio"}
     assert [d["id"] for d in data["dropped"]] == ["e0004"] and data["dropped"][0]["text"] == f"[{TRAP}]"
-    assert set(data["curves"]["concepts"]) == {"dog", "glass"}  # only concepts that produced events
+    # every concept of a cue or a dropped candidate gets its curve, no other, strongest first
+    assert data["curves"]["order"] == ["dog", "glass"] == list(data["curves"]["concepts"])
+    assert list(base64.b64decode(data["curves"]["concepts"]["dog"]))[7:12] == [26, 204, 204, 204, 26]
+    assert [c["concept"] for c in data["cues"]] == ["", "", "dog"]  # e0003 is the dog event
     assert any(n.startswith(update.RECORD_HEADING) for n in data["captions"]["notes"])
 
 
@@ -195,7 +199,7 @@ def test_a_dropped_candidate_is_offered_as_the_runs_style_worded_it(tmp_path: Pa
         media, parse_subtitles("WEBVTT\n", "vtt"), captions, json.loads(json.dumps(document))
     )
     # BBC Subtitle Guidelines §17.2-17.4 (the capitals style): capitals, no brackets, present tense
-    assert [d["text"] for d in review.page_data(inputs, tmp_path / "page.html")["dropped"]] == ["DOG BARKS"]
+    assert [d["text"] for d in review.page_data(inputs, "clip.wav")["dropped"]] == ["DOG BARKS"]
     assert document["events"][0]["text"] == "dog barking"  # the phrase stays, for older readers
 
 
@@ -401,14 +405,14 @@ def test_clicking_a_cue_moves_the_player(browser: Any, review_files: dict[str, P
 def test_keyboard_moves_between_cues_and_nudges_times(browser: Any, review_files: dict[str, Path]) -> None:
     _open(browser, review_files["page"])
     body = browser.find_element("tag name", "body")
-    body.send_keys("n")  # from the first cue to the second
+    body.send_keys("d")  # from the first cue to the second
     assert _wait(
         lambda: (
             abs(browser.execute_script("return document.querySelector('audio').currentTime") - 2.5) < 0.05
         ),
         "next cue",
     )
-    browser.switch_to.active_element.send_keys("]]}")
+    browser.switch_to.active_element.send_keys("wwr")  # start 200 ms later, end 100 ms later
     cues = list(
         webvtt.from_buffer(
             io.StringIO(browser.execute_script("return window.soundCaptionReview.exportText('vtt')"))
@@ -471,3 +475,73 @@ def test_save_downloads_a_track_that_update_respects(browser: Any, review_files:
     merged, summary = update.reconcile(parse_subtitles(body, "vtt"), record, MACHINE, "note")
     assert "[small dog yapping]" in merged and "[door slams]" not in merged
     assert (summary.kept_edited, summary.deleted) == (1, 1)
+
+
+# ---- waveform, inline tags, palette ------------------------------------------------------
+
+
+def test_peak_envelope_holds_each_windows_extremes_whatever_the_chunking() -> None:
+    from captioner.media import peak_envelope
+
+    samples = np.concatenate((tone(0.5, 50.0, 0.5), np.zeros(4000), [0.25]))  # 0.75 s + 1 sample
+    whole = peak_envelope([samples.astype(np.float32)], sample_rate=RATE, hop_ms=50)
+    pieces = np.array_split(samples.astype(np.float32), 7)  # chunks that end mid-window
+    assert np.array_equal(peak_envelope(pieces, sample_rate=RATE, hop_ms=50), whole)
+    assert whole.dtype == np.int8 and whole.shape == (16, 2)  # 15 full windows of 800 samples + 1
+    assert whole[:10, 0].min() == -64 and whole[:10, 1].max() == 64  # 0.5 full scale = 63.5 → 64
+    assert not whole[10:15].any() and list(whole[15]) == [32, 32]
+
+
+def test_the_page_carries_the_waveform_of_the_media(review_files: dict[str, Path]) -> None:
+    html = review_files["page"].read_text()
+    data = json.loads(re.search(r'id="review-data">(.*?)</script>', html, flags=re.DOTALL)[1])  # type: ignore[index]
+    peaks = np.frombuffer(base64.b64decode(data["waveform"]["peaks"]), dtype=np.int8).reshape(-1, 2)
+    assert data["waveform"]["hop_ms"] == 50 and len(peaks) == 120  # 6 s of 50 ms windows
+    assert abs(int(peaks[:, 1].max()) - round(0.2 * 127)) <= 1  # the fixture's tone peaks at 0.2
+
+
+def test_editor_text_keeps_inline_tags_and_decodes_references() -> None:
+    assert review.editor_text("<i>door</i> &amp; <c.loud>bang</c> &lt;3", "vtt") == (
+        "<i>door</i> & <c.loud>bang</c> <3"
+    )
+    assert review.editor_text("<i>a</i> &amp; b", "srt") == "<i>a</i> &amp; b"  # SRT has no references
+
+
+def _srgb_linear(rgb: np.ndarray) -> np.ndarray:
+    # IEC 61966-2-1 sRGB transfer function
+    return np.where(rgb <= 0.04045, rgb / 12.92, ((rgb + 0.055) / 1.055) ** 2.4)
+
+
+def _palette_distances(kind: str | None) -> np.ndarray:
+    """Pairwise CIEDE2000 distances between the palette's colours, as seen with `kind` of CVD."""
+    import colour
+    from colour.blindness import matrix_cvd_Machado2009
+
+    rgb = np.array([[int(c[i : i + 2], 16) / 255 for i in (1, 3, 5)] for c in review.PALETTE])
+    if kind:
+        # Machado, Oliveira & Fernandes 2009: the simulation works on linear RGB
+        seen = np.clip(_srgb_linear(rgb) @ matrix_cvd_Machado2009(kind, 1.0).T, 0, 1)
+        rgb = colour.cctf_encoding(seen)
+    lab = colour.XYZ_to_Lab(colour.sRGB_to_XYZ(rgb))
+    n = len(rgb)
+    return np.array(
+        [colour.delta_E(lab[i], lab[j], method="CIE 2000") for i in range(n) for j in range(i + 1, n)]
+    )
+
+
+@pytest.mark.parametrize("kind", [None, "Deuteranomaly", "Protanomaly"])
+def test_curve_colours_stay_apart_with_normal_vision_and_red_green_deficiencies(kind: str | None) -> None:
+    import colour
+
+    # the reference implementation reproduces Sharma, Wu & Dalal (2005) test pair 1: 2.0425
+    assert abs(colour.delta_E([50, 2.6772, -79.7751], [50, 0, -82.7485], method="CIE 2000") - 2.0425) < 1e-4
+    assert len(review.PALETTE) == 20 == len(set(review.PALETTE))
+    # a ΔE00 of 8 or more is an obvious difference side by side (common practice: ~2 is just noticeable)
+    assert _palette_distances(kind).min() >= 8.5
+
+
+def test_curve_colours_contrast_with_the_timeline() -> None:
+    rgb = np.array([[int(c[i : i + 2], 16) / 255 for i in (1, 3, 5)] for c in review.PALETTE])
+    luminance = _srgb_linear(rgb) @ np.array([0.2126, 0.7152, 0.0722])
+    # WCAG 2.1 relative luminance and contrast ratio against white; 1.4.11 asks 3:1 for graphics
+    assert ((1.05 / (luminance + 0.05)) >= 3.0).all()

@@ -704,7 +704,7 @@
     try {
       const response = await fetch(data.save.url, {
         method: "POST", headers: { "Content-Type": "application/json" },
-        body: JSON.stringify({ text: exportText(data.save.format), version: data.save.version }),
+        body: JSON.stringify({ text: exportText(data.save.format), cues: cues.length, version: data.save.version }),
       });
       const answer = await response.json();
       if (!response.ok) { fail("save", "Not saved: " + answer.error + "."); return; }
