@@ -545,3 +545,303 @@ def test_curve_colours_contrast_with_the_timeline() -> None:
     luminance = _srgb_linear(rgb) @ np.array([0.2126, 0.7152, 0.0722])
     # WCAG 2.1 relative luminance and contrast ratio against white; 1.4.11 asks 3:1 for graphics
     assert ((1.05 / (luminance + 0.05)) >= 3.0).all()
+
+
+# ---- working in the page ---------------------------------------------------------------
+
+
+def _export(browser: Any) -> list[Any]:
+    text = browser.execute_script("return window.soundCaptionReview.exportText('vtt')")
+    return list(webvtt.from_buffer(io.StringIO(text)).captions)
+
+
+def _now(browser: Any) -> float:
+    return float(browser.execute_script("return document.querySelector('audio').currentTime"))
+
+
+def _view(browser: Any) -> dict[str, float]:
+    return dict(browser.execute_script("return window.soundCaptionReview.view()"))
+
+
+def _ctrl(browser: Any, key: str, shift: bool = False) -> None:
+    from selenium.webdriver.common.action_chains import ActionChains
+    from selenium.webdriver.common.keys import Keys
+
+    chain = ActionChains(browser).key_down(Keys.CONTROL)
+    if shift:
+        chain = chain.key_down(Keys.SHIFT)
+    chain = chain.send_keys(key)
+    if shift:
+        chain = chain.key_up(Keys.SHIFT)
+    chain.key_up(Keys.CONTROL).perform()
+
+
+def test_undo_and_redo_step_through_edits(browser: Any, review_files: dict[str, Path]) -> None:
+    _open(browser, review_files["page"])
+    text = _by_css(browser, ".cue-text")[0]
+    text.send_keys(" loudly")  # seven keystrokes: one undo step
+    _by_css(browser, ".cue-row .delete")[2].click()
+    assert [c.text for c in _export(browser)] == ["[door slams] loudly", HOSTILE_VTT]
+    body = browser.find_element("tag name", "body")
+    body.click()
+    _ctrl(browser, "z")
+    assert [c.text for c in _export(browser)] == ["[door slams] loudly", HOSTILE_VTT, "[dog barking]"]
+    _ctrl(browser, "z")
+    assert [c.text for c in _export(browser)][0] == "[door slams]"
+    assert _by_css(browser, ".cue-text")[0].get_property("value") == "[door slams]"
+    _ctrl(browser, "z", shift=True)
+    assert [c.text for c in _export(browser)][0] == "[door slams] loudly"
+    assert browser.find_element("id", "redo").is_enabled()
+    assert _errors(browser) == []
+
+
+def _leaving_is_questioned(browser: Any) -> bool:
+    return bool(
+        browser.execute_script(
+            "const e = new Event('beforeunload', {cancelable: true}); window.dispatchEvent(e); return e.defaultPrevented"
+        )
+    )
+
+
+def test_leaving_with_unsaved_edits_asks_first(browser: Any, review_files: dict[str, Path]) -> None:
+    _open(browser, review_files["page"])
+    assert not _leaving_is_questioned(browser)
+    assert browser.find_element("id", "unsaved").is_displayed() is False
+    _by_css(browser, ".cue-text")[1].send_keys("!")
+    assert _leaving_is_questioned(browser) and browser.find_element("id", "unsaved").is_displayed()
+    assert browser.execute_script("return document.title").startswith("• ")
+    for old in browser.downloads.glob("*"):
+        old.unlink()
+    browser.find_element("id", "save-vtt").click()  # the download holds the edits now
+    assert not _leaving_is_questioned(browser)
+    _by_css(browser, ".cue-text")[1].send_keys("!")
+    assert _leaving_is_questioned(browser)
+    # (headless Chromium leaves without showing its dialog, so the event's cancellation, which
+    # is what makes a browser ask (HTML Living Standard, "unloading documents"), is checked)
+
+
+def test_dragging_a_cue_edge_moves_that_time_only(browser: Any, review_files: dict[str, Path]) -> None:
+    from selenium.webdriver.common.action_chains import ActionChains
+
+    _open(browser, review_files["page"])
+    view = _view(browser)
+    width = browser.execute_script("return document.getElementById('timeline').clientWidth")
+    ms_per_px = view["span"] / width
+    browser.execute_script("document.getElementById('timeline').scrollIntoView({block: 'center'})")
+    edge = _by_css(browser, ".cue-block")[0].find_element("css selector", ".cue-edge.end")
+    ActionChains(browser).click_and_hold(edge).move_by_offset(60, 0).release().perform()
+    first = _export(browser)[0]
+    moved_ms = round(60 * ms_per_px / 10) * 10
+    assert first.start == "00:00:01.000"
+    assert abs(webvtt_ms(first.end) - (2000 + moved_ms)) <= 20  # snapped to 10 ms
+    edge = _by_css(browser, ".cue-block")[0].find_element("css selector", ".cue-edge.start")
+    to_page_edge = -int(edge.location["x"] + edge.size["width"] / 2 - 1)  # left of the timeline
+    ActionChains(browser).click_and_hold(edge).move_by_offset(to_page_edge, 0).release().perform()
+    assert _export(browser)[0].start == "00:00:00.000"  # never before the start of the file
+    assert abs(_now(browser) - 0.0) < 0.01  # a drag is not a click: the player stayed put
+    assert _errors(browser) == []
+
+
+def webvtt_ms(stamp: str) -> int:
+    hours, minutes, seconds = stamp.split(":")
+    return round((int(hours) * 3600 + int(minutes) * 60 + float(seconds)) * 1000)
+
+
+def test_zoom_from_the_whole_file_to_seconds_with_a_ruler(
+    browser: Any, review_files: dict[str, Path]
+) -> None:
+    _open(browser, review_files["page"])
+    assert _view(browser) == {"start": 0, "span": 6000}
+    ticks = [t.text for t in _by_css(browser, ".ruler .tick")]
+    assert ticks[:2] == ["00:00", "00:01"]
+    browser.find_element("id", "zoom-in").click()
+    assert _view(browser)["span"] == 3000
+    browser.find_element("tag name", "body").send_keys("+")
+    assert _view(browser)["span"] == 2000  # the closest view: two seconds
+    ticks = [t.text for t in _by_css(browser, ".ruler .tick")]
+    assert len(ticks) >= 4 and ticks[1] in ("00:00.200", "00:00.500")
+    browser.find_element("tag name", "body").send_keys("0")
+    assert _view(browser)["span"] == 6000
+
+
+def test_the_timeline_shows_where_the_player_goes_and_follows_playback(
+    browser: Any, review_files: dict[str, Path]
+) -> None:
+    _open(browser, review_files["page"])
+    browser.execute_script("window.soundCaptionReview.setView(0, 2000)")
+    _by_css(browser, ".cue-row .seek")[2].click()  # Go to 00:04.000, outside the view
+    view = _view(browser)
+    assert view["start"] <= 4000 <= view["start"] + view["span"]
+    assert len(_by_css(browser, ".cue-block")) == 1  # only the cues in view are drawn
+    browser.execute_script(
+        "window.soundCaptionReview.setView(0, 2000); document.querySelector('audio').currentTime = 1.5"
+    )
+    browser.execute_script("document.querySelector('audio').play()")
+    _wait(lambda: _now(browser) > 2.6, "playback past the view", seconds=15)
+    view = _view(browser)
+    now_ms = _now(browser) * 1000
+    assert view["start"] > 0 and view["start"] <= now_ms <= view["start"] + view["span"]
+    browser.execute_script("document.querySelector('audio').pause()")
+
+
+def test_space_pauses_where_it_is_after_moving_to_a_cue(browser: Any, review_files: dict[str, Path]) -> None:
+    _open(browser, review_files["page"])
+    body = browser.find_element("tag name", "body")
+    body.send_keys("d")
+    assert _wait(lambda: abs(_now(browser) - 2.5) < 0.05, "the second cue")
+    browser.switch_to.active_element.send_keys(" ")
+    _wait(lambda: _now(browser) > 2.9, "playback")
+    browser.switch_to.active_element.send_keys(" ")
+    paused_at = _now(browser)
+    assert browser.execute_script("return document.querySelector('audio').paused")
+    assert paused_at > 2.9  # paused, not sent back to the cue's start
+    body.send_keys("k")  # not a key of this page
+    assert browser.execute_script("return document.querySelector('audio').paused")
+
+
+def test_the_key_list_on_the_page_is_the_key_map(browser: Any, review_files: dict[str, Path]) -> None:
+    _open(browser, review_files["page"])
+    listed = [dt.text for dt in _by_css(browser, "#key-list dt")]
+    assert "Ctrl+Z" in listed and "Ctrl+Shift+Z / Ctrl+Y" in listed and "x" in listed
+    assert len(listed) == len(_by_css(browser, "#key-list dd")) >= 12
+
+
+def test_an_error_message_clears_once_the_entry_is_right(browser: Any, review_files: dict[str, Path]) -> None:
+    _open(browser, review_files["page"])
+    end = _by_css(browser, ".cue-end")[0]
+    end.clear()
+    end.send_keys("00:00.500\n")  # before the start
+    status = browser.find_element("id", "status")
+    assert "end comes after the start" in status.text and "error" in status.get_attribute("class")
+    assert end.get_attribute("aria-invalid") == "true"
+    end = _by_css(browser, ".cue-end")[0]
+    end.clear()
+    end.send_keys("00:02.400\n")
+    assert "end comes after the start" not in status.text and "error" not in status.get_attribute("class")
+    assert _by_css(browser, ".cue-end")[0].get_attribute("aria-invalid") is None
+    assert _export(browser)[0].end == "00:00:02.400"
+
+
+def test_split_at_the_playhead_and_merge_back(browser: Any, review_files: dict[str, Path]) -> None:
+    _open(browser, review_files["page"])
+    browser.execute_script("document.querySelector('audio').currentTime = 1.5")
+    _wait(lambda: abs(_now(browser) - 1.5) < 0.01, "the seek")
+    browser.find_element("tag name", "body").send_keys("x")
+    cues = _export(browser)
+    assert [(c.start, c.end, c.identifier) for c in cues[:2]] == [
+        ("00:00:01.000", "00:00:01.500", "e0001"),
+        ("00:00:01.500", "00:00:02.000", None),  # the new half is a hand-added cue
+    ]
+    _by_css(browser, ".cue-row .seek")[0].click()
+    browser.find_element("tag name", "body").send_keys("m")
+    cues = _export(browser)
+    assert len(cues) == 3 and (cues[0].start, cues[0].end) == ("00:00:01.000", "00:00:02.000")
+    assert cues[0].text == "[door slams]\n[door slams]"
+
+
+TAGGED = """WEBVTT
+
+e0001
+00:00:01.000 --> 00:00:02.000
+<i>door</i> slams &amp; <c.loud>bangs</c>
+
+e0002
+00:00:02.500 --> 00:00:03.500 line:0
+<v Narrator>[music]</v> &lt;3
+"""
+
+
+def test_inline_tags_and_settings_are_kept_on_save(browser: Any, tmp_path: Path) -> None:
+    media = write_wav(tmp_path / "clip.wav", tone(4.0))
+    (tmp_path / "clip.sounds.vtt").write_text(TAGGED)
+    page = tmp_path / "clip.html"
+    assert main(["review", str(media), "-o", str(page)]) == 0
+    _open(browser, page)
+    assert _by_css(browser, ".cue-text")[0].get_property("value") == "<i>door</i> slams & <c.loud>bangs</c>"
+    assert _by_css(browser, ".cue-block")[0].get_property("textContent") == "door slams & bangs"
+    _by_css(browser, ".cue-text")[1].send_keys(" <b>again</b>")
+    vtt_text = browser.execute_script("return window.soundCaptionReview.exportText('vtt')")
+    assert "<i>door</i> slams &amp; <c.loud>bangs</c>" in vtt_text
+    assert "00:00:02.500 --> 00:00:03.500 line:0\n<v Narrator>[music]</v> &lt;3 <b>again</b>" in vtt_text
+    srt_cues = list(srt.parse(browser.execute_script("return window.soundCaptionReview.exportText('srt')")))
+    assert [c.content for c in srt_cues] == ["<i>door</i> slams & bangs", "[music] <3 <b>again</b>"]
+    live = browser.execute_script(
+        "return document.querySelector('audio').textTracks[0].cues[0].getCueAsHTML().firstChild.tagName"
+    )
+    assert live == "I"  # the player shows the italics
+
+
+# ---- saving in place through the local server ------------------------------------------------
+
+
+@pytest.fixture
+def served_page(review_files: dict[str, Path]) -> Iterator[Any]:
+    import threading
+
+    from captioner.review_server import start_server
+
+    server = start_server(
+        review_files["media"],
+        captions=review_files["captions"],
+        sidecar=review_files["events"],
+        waveform=review.waveform(review_files["media"]),
+    )
+    threading.Thread(target=server.serve_forever, daemon=True).start()
+    try:
+        yield server
+    finally:
+        server.shutdown()
+        server.server_close()
+
+
+def _open_served(browser: Any, server: Any) -> None:
+    browser.get(server.url)
+    _wait(lambda: browser.execute_script("return document.querySelector('audio').readyState") >= 1, "media")
+    browser.get_log("browser")
+
+
+def test_save_in_place_writes_the_track_and_update_keeps_the_edits(
+    browser: Any, review_files: dict[str, Path], served_page: Any
+) -> None:
+    _open_served(browser, served_page)
+    captions = review_files["captions"]
+    before = captions.read_text()
+    text = _by_css(browser, ".cue-text")[2]
+    text.clear()
+    text.send_keys("<i>[small dog yapping]</i>")
+    _by_css(browser, ".cue-row .delete")[0].click()
+    browser.find_element("id", "save").click()
+    status = browser.find_element("id", "status")
+    _wait(lambda: "Saved 2 cue(s) to beeps.vtt" in status.text, "the save")
+    assert not browser.execute_script("return window.soundCaptionReview.dirty()")
+    body = captions.read_text()
+    assert body != before
+    assert [c.raw_text for c in webvtt.from_buffer(io.StringIO(body)).captions] == [
+        HOSTILE_VTT,
+        "<i>[small dog yapping]</i>",  # the inline tag is kept
+    ]
+    assert update.read_record(body) == update.read_record(before)  # the record stays valid
+    merged, summary = update.update_vtt(captions, MACHINE, "drafted again")
+    assert "<i>[small dog yapping]</i>" in merged and "[door slams]" not in merged
+    assert (summary.kept_edited, summary.deleted) == (1, 1)
+
+    # a second save (Ctrl+S) goes over the version the first one wrote
+    _by_css(browser, ".cue-text")[0].send_keys("!")
+    _ctrl(browser, "s")
+    _wait(lambda: "Saved 2 cue(s)" in status.text and "!" in captions.read_text(), "the second save")
+    assert _errors(browser) == []
+
+
+def test_a_save_over_a_file_changed_elsewhere_says_so_and_keeps_the_edits(
+    browser: Any, review_files: dict[str, Path], served_page: Any
+) -> None:
+    _open_served(browser, served_page)
+    captions = review_files["captions"]
+    captions.write_text(captions.read_text().replace("[door slams]", "[door creaks]"))
+    changed = captions.read_bytes()
+    _by_css(browser, ".cue-text")[2].send_keys("!")
+    browser.find_element("id", "save").click()
+    status = browser.find_element("id", "status")
+    _wait(lambda: "changed on disk" in status.text, "the refusal")
+    assert captions.read_bytes() == changed
+    assert browser.execute_script("return window.soundCaptionReview.dirty()")  # the edits stay unsaved
