@@ -587,10 +587,10 @@ def test_undo_and_redo_step_through_edits(browser: Any, review_files: dict[str, 
     _ctrl(browser, "z")
     assert [c.text for c in _export(browser)] == ["[door slams] loudly", HOSTILE_VTT, "[dog barking]"]
     _ctrl(browser, "z")
-    assert [c.text for c in _export(browser)][0] == "[door slams]"
+    assert _export(browser)[0].text == "[door slams]"
     assert _by_css(browser, ".cue-text")[0].get_property("value") == "[door slams]"
     _ctrl(browser, "z", shift=True)
-    assert [c.text for c in _export(browser)][0] == "[door slams] loudly"
+    assert _export(browser)[0].text == "[door slams] loudly"
     assert browser.find_element("id", "redo").is_enabled()
     assert _errors(browser) == []
 

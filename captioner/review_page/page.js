@@ -225,13 +225,14 @@
     const hop = curves.hop_ms, half = curves.patch_ms / 2, width = widthPx(), per = msPerPx();
     const first = Math.max(0, Math.floor((view.start - half) / hop) - 1);
     const last = Math.min(values.length - 1, Math.ceil((view.start + view.span - half) / hop) + 1);
-    const column = new Map();
+    const columns = new Int16Array(width + 3).fill(-1);  // column x + 1: one spare pixel each side
     for (let i = first; i <= last; i++) {
-      const x = Math.round((i * hop + half - view.start) / per);
-      column.set(x, Math.max(column.get(x) || 0, values[i]));
+      const x = Math.min(width + 2, Math.max(0, Math.round((i * hop + half - view.start) / per) + 1));
+      if (values[i] > columns[x]) columns[x] = values[i];
     }
-    const base = LANE.curveTop + LANE.curveHeight;
-    return [...column].map(([x, v]) => x + "," + (base - v / 255 * (LANE.curveHeight - 2)).toFixed(1)).join(" ");
+    const base = LANE.curveTop + LANE.curveHeight, scale = (LANE.curveHeight - 2) / 255, out = [];
+    for (let x = 0; x < columns.length; x++) if (columns[x] >= 0) out.push((x - 1) + "," + (base - columns[x] * scale).toFixed(1));
+    return out.join(" ");
   }
 
   function drawTimeline() {
