@@ -111,11 +111,13 @@ class _Handler(BaseHTTPRequestHandler):
         }
         origin = self.headers.get("Origin")
         parts = self.path.split("?", 1)[0].split("/")
-        token_ok = len(parts) >= 2 and secrets.compare_digest(parts[1], self.server.site.token)
+        token_ok = len(parts) >= 2 and secrets.compare_digest(
+            parts[1].encode("latin-1"), self.server.site.token.encode("ascii")
+        )
         if not token_ok or self.headers.get("Host") not in allowed_hosts:
             self._refuse(HTTPStatus.FORBIDDEN, "not this review session")
             return None
-        if origin is not None and origin != self.server.origin:
+        if origin is not None and origin not in {f"http://{host}" for host in allowed_hosts}:
             self._refuse(HTTPStatus.FORBIDDEN, "requests from other pages are refused")
             return None
         return "/".join(parts[2:])

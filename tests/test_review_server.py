@@ -127,6 +127,16 @@ def test_reads_without_token_or_with_a_foreign_host_or_origin_are_refused(
     assert status == 403 and b"WEBVTT" not in body and b"<html" not in body
 
 
+def test_a_token_of_other_characters_is_refused_not_crashed_on(served: ReviewServer) -> None:
+    import socket
+
+    with socket.create_connection(("127.0.0.1", served.server_address[1]), timeout=10) as connection:
+        host = f"127.0.0.1:{served.server_address[1]}".encode()
+        connection.sendall(b"GET /t\xc3\xb6ken/ HTTP/1.1\r\nHost: " + host + b"\r\nConnection: close\r\n\r\n")
+        answer = connection.recv(100)
+    assert answer.startswith(b"HTTP/1.1 403")
+
+
 @pytest.mark.parametrize(
     ("path", "headers"),
     [

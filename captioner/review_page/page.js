@@ -164,6 +164,9 @@
   const order = curves.order || Object.keys(curves.concepts);
   const curveData = Object.fromEntries(order.map((name) => [name, bytes(curves.concepts[name])]));
   const peaks = data.waveform ? new Int8Array(bytes(data.waveform.peaks).buffer) : null;
+  // drawn relative to the loudest peak, so a quiet soundtrack still shows its shape
+  let loudest = 1;
+  for (const value of peaks || []) loudest = Math.max(loudest, Math.abs(value));
   const conceptColour = (name) => { const n = order.indexOf(name); return n < 0 ? "" : palette[n % palette.length]; };
   const conceptDash = (name) => DASHES[Math.floor(Math.max(0, order.indexOf(name)) / palette.length) % DASHES.length];
   const widthPx = () => timeline.clientWidth || 800;
@@ -207,7 +210,7 @@
   function wavePath() {
     if (!peaks) return "";
     const hop = data.waveform.hop_ms, windows = peaks.length / 2, width = widthPx();
-    const mid = LANE.waveTop + LANE.waveHeight / 2, scale = LANE.waveHeight / 2 / 127;
+    const mid = LANE.waveTop + LANE.waveHeight / 2, scale = LANE.waveHeight / 2 / loudest;
     const top = [], bottom = [];
     for (let x = 0; x < width; x++) {
       const from = Math.max(0, Math.floor((view.start + x * msPerPx()) / hop));
