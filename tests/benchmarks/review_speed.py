@@ -36,7 +36,7 @@ from captioner import review, update
 from captioner.cues import Cue
 
 sys.path.insert(0, str(Path(__file__).parent))
-from speed import make_input  # noqa: E402  (the same generated input as the speed benchmark)
+from speed import make_input  # the same generated input as the speed benchmark
 
 HOUR_MS = 3_600_000
 N_CUES, N_DROPPED, N_CONCEPTS = 300, 200, 40
@@ -193,8 +193,12 @@ def main() -> int:
     print(f"| page ready: navigation start to end of page script | {summary(ready)} |")
     print(f"| page load event | {summary(loaded)} |")
     print(f"| typing: one key in a cue's text, with layout ({len(keys)} keys) | {summary(keys)} |")
-    print(f"| timeline: one pan step at a 30 s view, with layout ({timeline['blocks']} cue blocks drawn) | {summary(timeline['steps'])} |")
-    print(f"| timeline: whole hour redrawn ({timeline['wholeBlocks']} cue blocks) | {summary(timeline['whole'])} |")
+    print(
+        f"| timeline: one pan step at a 30 s view, with layout ({timeline['blocks']} cue blocks drawn) | {summary(timeline['steps'])} |"
+    )
+    print(
+        f"| timeline: whole hour redrawn ({timeline['wholeBlocks']} cue blocks) | {summary(timeline['whole'])} |"
+    )
     print(f"| cue list: one 600 px scroll step, with layout | {summary(timeline['scroll'])} |")
     return 0
 
