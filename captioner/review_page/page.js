@@ -629,7 +629,7 @@
     { keys: ["m"], match: (e) => e.key === "m", what: "merge the selected cue with the next one", run: mergeCue },
     { keys: ["Enter"], match: (e) => e.key === "Enter" && e.target.classList.contains("cue-block"), what: "type in the selected cue's text", run: () => { const field = document.querySelector('.cue-row[data-key="' + selectedKey + '"] .cue-text'); if (field) field.focus(); } },
     { keys: ["Delete"], match: (e) => e.key === "Delete", what: "delete the selected cue", run: () => { if (selectedKey !== null) deleteCue(selectedKey); } },
-    { keys: ["+", "−"], match: (e) => e.key === "+" || e.key === "=" || e.key === "-", what: "zoom the timeline in / out", run: (e) => zoom(e.key === "-" ? 2 : 0.5) },
+    { keys: ["+", "-"], match: (e) => e.key === "+" || e.key === "=" || e.key === "-", what: "zoom the timeline in / out", run: (e) => zoom(e.key === "-" ? 2 : 0.5) },
     { keys: ["0"], match: (e) => e.key === "0", what: "show the whole file", run: () => setView(0, durationMs()) },
     { keys: ["Ctrl+Z"], ctrl: true, match: (e) => e.key.toLowerCase() === "z" && !e.shiftKey, what: "undo", run: undo },
     { keys: ["Ctrl+Shift+Z", "Ctrl+Y"], ctrl: true, match: (e) => (e.key.toLowerCase() === "z" && e.shiftKey) || e.key.toLowerCase() === "y", what: "redo", run: redo },
