@@ -639,6 +639,8 @@ def test_dragging_a_cue_edge_moves_that_time_only(browser: Any, review_files: di
     ActionChains(browser).click_and_hold(edge).move_by_offset(to_page_edge, 0).release().perform()
     assert _export(browser)[0].start == "00:00:00.000"  # never before the start of the file
     assert abs(_now(browser) - 0.0) < 0.01  # a drag is not a click: the player stayed put
+    _by_css(browser, ".cue-block")[2].click()  # and the next click is a click again
+    _wait(lambda: abs(_now(browser) - 4.0) < 0.05, "seek to 4.0 s")
     assert _errors(browser) == []
 
 

@@ -341,6 +341,7 @@
       block.removeEventListener("pointerup", up);
       block.removeEventListener("pointercancel", up);
       if (recorded) { selectedKey = cue.key; rebuild(); }
+      setTimeout(() => { dragged = false; }, 0);  // the block may be gone before its click arrives
     };
     block.addEventListener("pointermove", move);
     block.addEventListener("pointerup", up);
@@ -353,9 +354,12 @@
       seek(view.start + (event.clientX - box.left) * msPerPx());
     }
   });
+  // Ctrl+wheel zooms at the pointer, a sideways (or Shift+) wheel pans; a plain wheel scrolls the page
   timeline.addEventListener("wheel", (event) => {
-    event.preventDefault();
     const box = timeline.getBoundingClientRect();
+    const sideways = event.shiftKey || Math.abs(event.deltaX) > Math.abs(event.deltaY);
+    if (!event.ctrlKey && !sideways) return;
+    event.preventDefault();
     if (event.ctrlKey) zoom(event.deltaY > 0 ? 1.25 : 0.8, view.start + (event.clientX - box.left) * msPerPx());
     else setView(view.start + (event.deltaX || event.deltaY) * msPerPx(), view.span);
   }, { passive: false });
