@@ -238,38 +238,44 @@
     return out.join(" ");
   }
 
+  // The lanes are made once; a redraw changes their shapes and swaps only the visible blocks.
+  const ruler = document.createElement("div");
+  ruler.className = "ruler";
+  const svg = svgNode("svg", { preserveAspectRatio: "none", "aria-hidden": "true" });
+  const wave = peaks ? svg.appendChild(svgNode("path", { class: "wave", fill: "var(--wave)" })) : null;
+  const curveLines = new Map(order.map((name) => [name, svg.appendChild(svgNode("polyline", {
+    fill: "none", stroke: conceptColour(name), "stroke-dasharray": conceptDash(name), "data-concept": name,
+  }))]));
+  const labels = [["waveform", "21px"], ["scores", "69px"], ["dialogue", "163px"], ["cues", "208px"]].map(([label, top]) => {
+    const tag = document.createElement("span");
+    tag.className = "lane-label";
+    tag.style.top = top;
+    tag.textContent = label;
+    return tag;
+  });
+  timeline.replaceChildren(ruler, svg, ...labels, playhead);
+  let shown = [];  // the dialogue spans and cue blocks in view
+
   function drawTimeline() {
     const width = widthPx(), end = view.start + view.span;
-    const parts = [];
-    const ruler = document.createElement("div");
-    ruler.className = "ruler";
-    const step = tickStep();
+    const step = tickStep(), ticks = [];
     for (let t = Math.ceil(view.start / step) * step; t < end; t += step) {
       const tick = document.createElement("span");
       tick.className = "tick";
       tick.style.left = xOf(t) + "px";
       tick.textContent = step < 1000 ? clock(t) : clock(t).replace(/\.000$/, "");
-      ruler.appendChild(tick);
+      ticks.push(tick);
     }
-    parts.push(ruler);
-    const svg = svgNode("svg", { viewBox: "0 0 " + width + " 140", preserveAspectRatio: "none", "aria-hidden": "true" });
-    if (peaks) svg.appendChild(svgNode("path", { d: wavePath(), class: "wave", fill: "var(--wave)" }));
+    ruler.replaceChildren(...ticks);
+    svg.setAttribute("viewBox", "0 0 " + width + " 140");
+    if (wave) wave.setAttribute("d", wavePath());
     const focusConcept = (selected() || {}).concept;
-    for (const name of order) {
-      svg.appendChild(svgNode("polyline", {
-        points: curvePoints(curveData[name]), fill: "none", stroke: conceptColour(name),
-        "stroke-width": name === focusConcept ? "3" : "1.6", "stroke-dasharray": conceptDash(name),
-        "data-concept": name,
-      }));
+    for (const [name, line] of curveLines) {
+      line.setAttribute("points", curvePoints(curveData[name]));
+      line.setAttribute("stroke-width", name === focusConcept ? "3" : "1.6");
     }
-    parts.push(svg);
-    for (const [label, top] of [["waveform", "21px"], ["scores", "69px"], ["dialogue", "163px"], ["cues", "208px"]]) {
-      const tag = document.createElement("span");
-      tag.className = "lane-label";
-      tag.style.top = top;
-      tag.textContent = label;
-      parts.push(tag);
-    }
+    for (const node of shown) node.remove();
+    shown = [];
     for (const [start, stop] of data.dialogue || []) {
       if (stop < view.start || start > end) continue;
       const span = document.createElement("div");
@@ -277,11 +283,10 @@
       span.style.left = xOf(start) + "px";
       span.style.width = Math.max(1, (stop - start) / msPerPx()) + "px";
       span.title = "dialogue " + clock(start) + "–" + clock(stop);
-      parts.push(span);
+      shown.push(span);
     }
-    for (const cue of sorted()) if (cue.end_ms >= view.start && cue.start_ms <= end) parts.push(cueBlock(cue));
-    parts.push(playhead);
-    timeline.replaceChildren(...parts);
+    for (const cue of sorted()) if (cue.end_ms >= view.start && cue.start_ms <= end) shown.push(cueBlock(cue));
+    playhead.before(...shown);
     placePlayhead();
     const pan = byId("pan");
     pan.max = String(Math.max(0, durationMs() - view.span));
