@@ -169,11 +169,12 @@ def build_parser() -> argparse.ArgumentParser:
 
     review = commands.add_parser(
         "review",
-        help="write a review page (one HTML file) to check, fix and save a sound-caption track",
+        help="check, fix and save a sound-caption track in a browser (--serve), or write the page as one HTML file",
         formatter_class=argparse.RawDescriptionHelpFormatter,
         epilog=(
             "examples:\n"
-            "  captioner review demo.mp4 -o demo.review.html          # uses demo.sounds.vtt and demo.sounds.json beside it\n"
+            "  captioner review demo.mp4 --serve                      # opens the page; saves go straight to demo.sounds.vtt\n"
+            "  captioner review demo.mp4 -o demo.review.html          # one file to share; it saves by download\n"
             "  captioner review talk.wav --captions talk.sounds.srt --events-json talk.json -o talk.html\n"
             "  captioner caption demo.mp4 --update                    # after saving your edits as demo.sounds.vtt"
         ),
@@ -193,8 +194,20 @@ def build_parser() -> argparse.ArgumentParser:
         type=Path,
         help="sidecar from `caption --events-json`: score curves, dialogue, dropped candidates (default: NAME.sounds.json beside INPUT, if present)",
     )
-    review.add_argument("-o", "--output", type=Path, required=True, help="HTML page to write")
+    where = review.add_mutually_exclusive_group(required=True)
+    where.add_argument("-o", "--output", type=Path, help="HTML page to write")
+    where.add_argument(
+        "--serve",
+        action="store_true",
+        help="serve the page from this computer only (127.0.0.1) until Ctrl-C; saving writes the caption track in place",
+    )
     review.add_argument("--force", action="store_true", help="replace an existing page")
+    review.add_argument(
+        "--no-browser", action="store_true", help="with --serve: print the address, open no browser"
+    )
+    review.add_argument(
+        "--port", type=int, default=0, help="with --serve: the port to listen on (default: any free one)"
+    )
 
     batch = commands.add_parser(
         "batch",

@@ -384,6 +384,8 @@ def _evaluate(args: argparse.Namespace) -> int:
 
 
 def _review(args: argparse.Namespace) -> int:
+    if args.serve:
+        return _review_served(args)
     from .formats import sound_track_path, write_atomic
     from .review import build_page, default_captions
 
@@ -394,6 +396,7 @@ def _review(args: argparse.Namespace) -> int:
         args.events_json or sound_track_path(args.input, "json"),
     )
     _refuse_overwrite((args.output,), inputs, force=args.force)
+    print(f"captioner: reading the waveform of {args.input.name}", file=sys.stderr)
     write_atomic(
         args.output,
         build_page(args.input, args.output, captions=args.captions, sidecar=args.events_json),
@@ -403,6 +406,41 @@ def _review(args: argparse.Namespace) -> int:
         f"captioner: review page written to {args.output}; open it in a browser (it needs {args.input.name} at the same relative path)",
         file=sys.stderr,
     )
+    return EXIT_OK
+
+
+def _review_served(args: argparse.Namespace) -> int:
+    import webbrowser
+
+    from .review import load_inputs, waveform
+    from .review_server import start_server
+
+    load_inputs(args.input, args.captions, args.events_json)  # unreadable inputs fail before any decoding
+    print(f"captioner: reading the waveform of {args.input.name}", file=sys.stderr)
+    try:
+        server = start_server(
+            args.input,
+            captions=args.captions,
+            sidecar=args.events_json,
+            waveform=waveform(args.input),
+            port=args.port,
+        )
+    except OSError as exc:
+        raise OutputError(
+            f"port {args.port}",
+            f"cannot listen on it ({exc.strerror})",
+            "leave out --port to take a free one",
+        ) from exc
+    with server:
+        track = server.site.inputs.captions_path
+        print(f"captioner: reviewing {track} at {server.url}", flush=True)
+        print("captioner: saving in the page writes that file; press Ctrl-C here to stop", file=sys.stderr)
+        if not args.no_browser:
+            webbrowser.open(server.url)
+        try:
+            server.serve_forever()
+        except KeyboardInterrupt:
+            print("captioner: review server stopped", file=sys.stderr)
     return EXIT_OK
 
 
