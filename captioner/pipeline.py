@@ -6,39 +6,23 @@ import dataclasses
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
-from typing import TYPE_CHECKING
 
 from threadpoolctl import threadpool_limits
 
-from . import media
+from . import __version__, media, update
+from .captioned import Captioned as Captioned  # re-exported: pipeline.Captioned
 from .cues import Cue, build_cues
 from .dialogue import speech_spans
 from .errors import StyleError
 from .events import SoundEvent, Span, detect_events
+from .formats import WRITERS, sidecar
+from .formats.merge import MergedTrack, dropped_decisions, dumps_merged, merge_tracks, outcomes_json
+from .formats.subtitles import SubtitleTrack
 from .packs import LoadedPack
 from .policy import Decision, select_events
 from .scores import ScoreTrack, compute_scores
 from .style import Style
 from .vocabulary import Vocabulary
-
-if TYPE_CHECKING:  # imported where used, as formats.sidecar imports this module
-    from .formats.merge import MergedTrack
-    from .formats.subtitles import SubtitleTrack
-
-
-@dataclass(frozen=True, slots=True)
-class Captioned:
-    """Everything one run produced, for writers, the sidecar and the explain table."""
-
-    source: Path
-    style: Style
-    pack_name: str
-    track: ScoreTrack
-    dialogue: tuple[Span, ...]
-    dialogue_source: str  # "classifier" or the subtitle file used
-    events: tuple[SoundEvent, ...]
-    decisions: tuple[Decision, ...]
-    cues: tuple[Cue, ...]
 
 
 def caption_track(
@@ -133,9 +117,6 @@ class Drafts:
 
     def events_json(self) -> str:
         """The JSON sidecar: every event, decision and score curve, plus the merge outcome."""
-        from .formats import sidecar
-        from .formats.merge import outcomes_json
-
         document = sidecar.sidecar(self.result, self.vocabulary)
         if self.merged is not None:
             document["merge"] = {
@@ -156,10 +137,6 @@ def draft_outputs(
 ) -> Drafts:
     """Render a captioned file: the sound track in `fmt` ("vtt" or "srt") and, given a
     dialogue track, that track merged with the sound cues."""
-    from . import __version__, update
-    from .formats import WRITERS
-    from .formats.merge import dropped_decisions, dumps_merged, merge_tracks
-
     note = (
         f"Sound captions drafted by captioner {__version__} from {result.source.name}\n"
         f"style {result.style.name}, model pack {result.pack_name}; review before publishing"

@@ -7,7 +7,7 @@ from collections.abc import Iterator
 from contextlib import contextmanager
 from typing import Any
 
-from .pipeline import Captioned
+from .captioned import Captioned
 
 _LONG_INPUT_MS = 30_000  # shorter inputs finish before a bar is worth drawing
 

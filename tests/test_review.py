@@ -139,9 +139,9 @@ def _capitals_run(tmp_path: Path) -> tuple[dict[str, Any], Any]:
     """A real sidecar of a `capitals` run in which "dog barking" was dropped."""
     import numpy as np
 
+    from captioner.captioned import Captioned
     from captioner.events import SoundEvent
     from captioner.formats.sidecar import sidecar
-    from captioner.pipeline import Captioned
     from captioner.policy import Decision
     from captioner.scores import ScoreTrack
     from captioner.style import load_style
@@ -211,8 +211,8 @@ def test_sidecar_curves_cover_the_concepts_that_can_become_captions(tmp_path: Pa
 def test_sidecar_curves_keep_small_scores_apart_on_one_line_each(tmp_path: Path) -> None:
     import numpy as np
 
+    from captioner.captioned import Captioned
     from captioner.formats.sidecar import dumps, sidecar
-    from captioner.pipeline import Captioned
     from captioner.scores import ScoreTrack
     from captioner.style import load_style
     from captioner.vocabulary import ClassEntry, Kind, Vocabulary
