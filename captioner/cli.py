@@ -71,7 +71,7 @@ def _notices(quiet: bool) -> Callable[[str], None]:
 
 
 def _caption(args: argparse.Namespace) -> int:
-    from . import packs, pipeline, update
+    from . import media, packs, pipeline, update
     from .formats import merged_track_path, sound_track_path, write_atomic
     from .formats.merge import merge_table
     from .formats.subtitles import dialogue_spans, read_track
@@ -94,6 +94,7 @@ def _caption(args: argparse.Namespace) -> int:
     _refuse_overwrite((output, args.events_json), (args.input, args.dialogue), force=args.force or updating)
     dialogue = dialogue_spans(track.cues) if track is not None else None
     say = _notices(args.quiet)
+    media.probe(args.input)  # a mistyped or unreadable input fails before any model download
     pack = packs.load_pack(args.model or packs.DEFAULT_PACK, cache=packs.cache_root(), say=say)
     with progress_bar(enabled=not args.quiet, label=args.input.name) as bar:
         result = pipeline.caption_file(
