@@ -3,7 +3,8 @@
 Rules run in a fixed order; the first rule that drops an event names the decision:
 
     confidence, duration, salience  -- the event alone is too weak to caption
-    evidence   -- no signal energy backs the claim (near-silence, or not above the noise floor)
+    evidence   -- no signal energy backs the claim (near-silence, or not above the noise floor;
+                  a lasting sound heard from the start has no floor of its own and is exempt)
     parent     -- a confident, more specific concept covers it (vehicle under car horn),
                   or it is an unsure child that its surer parent already names, or a sure
                   source whose name a longer sourceless parent ("alarm") takes over
@@ -144,11 +145,19 @@ def _weak(events: list[SoundEvent], settings: Selection, drop: _Drop) -> list[So
             settings.evidence_gate
             and event.above_floor_db < settings.min_contrast_db
             and not _safety_exempt(event, settings)
+            and not _from_the_start(event, settings)
         ):
             drop(event, "evidence", f"only {event.above_floor_db:+.1f} dB above the noise floor")
         else:
             alive.append(event)
     return alive
+
+
+def _from_the_start(event: SoundEvent, settings: Selection) -> bool:
+    """A lasting sound playing from the first second (a music bed under the opening titles)
+    has no quieter stretch before it: its surroundings are itself, so the floor it is
+    compared with is its own level. Only the near-silence test applies to it."""
+    return event.kind in LASTING and event.start_ms < settings.opening_ms
 
 
 def _brief_music(alive: list[SoundEvent], music_min_ms: int, drop: _Drop) -> list[SoundEvent]:

@@ -78,6 +78,7 @@ class Selection:
     evidence_gate: bool = True  # a sound claim needs signal energy at that time
     min_level_db: float = -55.0  # quieter than this is near-silence
     min_contrast_db: float = 6.0  # event level above the local noise floor (quietest surroundings)
+    opening_ms: int = 1000  # a lasting sound starting this early needs no contrast (0 = off)
     safety_confidence: float = (
         0.5  # a priority-5 sound this sure needs no contrast, only signal (1 = no exemption)
     )
@@ -181,6 +182,7 @@ _RANGES: dict[str, tuple[float, float]] = {
     "min_level_db": (-120.0, 0.0),
     "min_contrast_db": (-60.0, 60.0),
     "safety_confidence": (0.0, 1.0),
+    "opening_ms": (0, 10000),
     "generic_confidence": (0.0, 1.0),
 }
 

@@ -442,3 +442,18 @@ def test_attention_sounds_under_dialogue_need_less_confidence() -> None:
     kept, rules = run([knock, dog], settings, talk)
     assert kept == {"k"} and rules["d"] == "dialogue"
     assert run([knock, dog], replace(settings, dialogue_alert_confidence=0.7), talk)[0] == set()
+
+
+def test_a_music_bed_playing_from_the_first_second_needs_no_contrast() -> None:
+    # Music from 0:00 has no quieter floor before it: its surroundings are the music itself
+    # (+4.9 dB was measured on such a bed). Later the same contrast still fails the gate,
+    # and near-silence never passes, from the start or not.
+    bed = replace(event("m", "music", 0, 9000, kind=Kind.MUSIC, level_db=-25.0), floor_db=-29.9)
+    later = replace(event("n", "music", 30000, 39000, kind=Kind.MUSIC, level_db=-25.0), floor_db=-29.9)
+    hush = replace(event("h", "rain", 0, 9000, kind=Kind.AMBIENCE, level_db=-70.0), floor_db=-72.0)
+    knock = replace(event("k", "knock", 0, 500, level_db=-25.0), floor_db=-29.9)  # short: has a floor
+    gate = replace(OPEN, evidence_gate=True, min_contrast_db=6.0, safety_confidence=1.0)
+    kept, rules = run([bed, later, hush, knock], gate)
+    assert kept == {"m"}
+    assert rules["n"] == rules["h"] == rules["k"] == "evidence"
+    assert run([bed], replace(gate, opening_ms=0))[0] == set()  # the exemption switches off
