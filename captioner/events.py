@@ -46,6 +46,8 @@ class SoundEvent:
     parent_wording: (
         tuple[str, str] | tuple[()]
     ) = ()  # the parent concept's (phrase, phrase_present), for sounds too close to tell apart
+    noun: str = ""  # the sound as a noun, for its end cue ("rain"); "" = derived from the phrase
+    same_sound: tuple[str, ...] = ()  # concepts that name this sound in other words
 
     @property
     def duration_ms(self) -> int:
@@ -201,6 +203,8 @@ def detect_events(track: ScoreTrack, vocabulary: Vocabulary, settings: Detection
                     generic=best.generic,
                     parent_wording=_wording(by_concept.get(best.parent or "", ())),
                     floor_db=floor,
+                    noun=best.noun,
+                    same_sound=best.same_sound,
                 )
             )
     found.sort(key=lambda e: (e.start_ms, -e.priority, e.concept))

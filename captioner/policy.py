@@ -10,7 +10,8 @@ Rules run in a fixed order; the first rule that drops an event names the decisio
                   source whose name a longer sourceless parent ("alarm") takes over
     music      -- a mood/genre/singing detail that is not confident enough to word the music
     duration   -- music shorter than music_min_ms (checked after the music wording is given)
-    sibling    -- another refinement of the same parent scored higher on the same sound (when
+    sibling    -- another refinement of the same parent, or a concept the vocabulary marks as
+                  the same sound (same_sound), scored higher on the same sound (when
                   the two scored within sibling_margin, the kept one is worded as the parent:
                   "[alarm blaring]", not a guess between "car alarm" and "smoke alarm")
     generic    -- a sourceless description ("beeping") beside a specific sound of that moment,
@@ -194,7 +195,12 @@ def _worded_by(parent: SoundEvent, child: SoundEvent, notes: dict[str, str], **c
     """The parent event, keeping its span, worded as the child names the sound."""
     notes[parent.event_id] = f"worded by {child.concept} ({child.event_id}, {child.peak_score:.2f})"
     return replace(
-        parent, label=child.label, phrase=child.phrase, phrase_present=child.phrase_present, **changes
+        parent,
+        label=child.label,
+        phrase=child.phrase,
+        phrase_present=child.phrase_present,
+        noun=child.noun,
+        **changes,
     )
 
 
@@ -275,19 +281,30 @@ def _parents(
     return [by_id[e.event_id] for e in alive if e.event_id not in gone]
 
 
-def _siblings(alive: list[SoundEvent], margin: float, drop: _Drop, notes: dict[str, str]) -> list[SoundEvent]:
-    """Refinements of the same parent that share most of their time are one sound, named once.
+def _one_sound(keeper: SoundEvent, other: SoundEvent) -> bool:
+    """Refinements of one parent, or concepts the vocabulary says name the same sound (then
+    never at the cost of a more important one: an engine never hides the siren it carries)."""
+    if keeper.parent is not None and keeper.parent == other.parent:
+        return True
+    declared = keeper.concept in other.same_sound or other.concept in keeper.same_sound
+    return declared and other.priority <= keeper.priority
 
-    When the classifier could barely tell them apart (peaks within `margin`), the sound is
-    named by what they share: a wrong specific name misleads more than a right general one.
+
+def _siblings(alive: list[SoundEvent], margin: float, drop: _Drop, notes: dict[str, str]) -> list[SoundEvent]:
+    """Refinements of the same parent that share most of their time are one sound, named once;
+    so are near-synonym concepts (`same_sound` in the vocabulary: "rain" and "water").
+
+    When the classifier could barely tell two refinements apart (peaks within `margin`),
+    the sound is named by what they share: a wrong specific name misleads more than a
+    right general one.
     """
     gone: set[str] = set()
     reworded: dict[str, SoundEvent] = {}
     for event in sorted(alive, key=lambda e: -e.peak_score):
-        if event.event_id in gone or event.parent is None:
+        if event.event_id in gone:
             continue
         for other in alive:
-            if other is event or other.event_id in gone or other.parent != event.parent:
+            if other is event or other.event_id in gone or not _one_sound(event, other):
                 continue
             if (
                 _shared_ms(event, other) * 2 >= min(event.duration_ms, other.duration_ms)
@@ -299,11 +316,13 @@ def _siblings(alive: list[SoundEvent], margin: float, drop: _Drop, notes: dict[s
                 )
                 if (
                     event.peak_score - other.peak_score < margin
+                    and other.parent == event.parent
                     and event.parent_wording
                     and event.event_id not in reworded
                 ):
                     phrase, present = event.parent_wording
-                    reworded[event.event_id] = replace(event, phrase=phrase, phrase_present=present)
+                    # noun "": the end cue names the parent's phrase too
+                    reworded[event.event_id] = replace(event, phrase=phrase, phrase_present=present, noun="")
                     notes[event.event_id] = (
                         f"worded as {event.parent}: {other.concept} scored {other.peak_score:.2f}, too close to tell"
                     )

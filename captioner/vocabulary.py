@@ -40,6 +40,8 @@ class ClassEntry:
     priority: int  # 1 (trivial) .. 5 (safety alert)
     parent: str | None
     generic: bool = False  # the wording names no source ("beeping"); a specific sound of the moment says more
+    noun: str = ""  # the sound as a noun, for its end cue ("rain" -> "[rain stops]")
+    same_sound: tuple[str, ...] = ()  # concepts naming the same sound in other words ("rain" ~ "water")
 
 
 @dataclass(frozen=True, slots=True)
@@ -85,10 +87,14 @@ def load_vocabulary(path: Path, labels: tuple[str, ...]) -> Vocabulary:
                     path, f"class {label!r} is mapped twice ({by_label[label][0]} and {concept})", "keep one"
                 )
             if not (
-                isinstance(wording, list) and len(wording) == 2 and all(isinstance(w, str) for w in wording)
+                isinstance(wording, list)
+                and len(wording) in (2, 3)
+                and all(isinstance(w, str) and w.strip() for w in wording)
             ):
                 raise PackError(
-                    path, f"class {label!r} needs [bracket wording, capitals wording]", "fix the entry"
+                    path,
+                    f"class {label!r} needs [bracket wording, capitals wording] and optionally its noun",
+                    "fix the entry",
                 )
             by_label[label] = (str(concept), spec, wording)
     missing = [label for label in labels if label not in by_label]
@@ -124,7 +130,32 @@ def load_vocabulary(path: Path, labels: tuple[str, ...]) -> Vocabulary:
         generic = spec.get("generic", False)
         if not isinstance(generic, bool):
             raise PackError(path, f"concept {concept!r} has generic={generic!r}", "use true or false")
+        noun = wording[2] if len(wording) == 3 else spec.get("noun", "")
+        if not isinstance(noun, str):
+            raise PackError(path, f"concept {concept!r} has noun={noun!r}", "use the sound's name as text")
         entries.append(
-            ClassEntry(index, label, concept, wording[0], wording[1], kind, priority, parent, generic)
+            ClassEntry(
+                index,
+                label,
+                concept,
+                wording[0],
+                wording[1],
+                kind,
+                priority,
+                parent,
+                generic,
+                noun,
+                _same_sound(path, concept, spec.get("same_sound", []), data),
+            )
         )
     return Vocabulary(tuple(entries))
+
+
+def _same_sound(path: Path, concept: str, names: Any, concepts: dict[str, Any]) -> tuple[str, ...]:
+    if not isinstance(names, list) or not all(isinstance(n, str) and n in concepts for n in names):
+        raise PackError(
+            path,
+            f"concept {concept!r} has same_sound={names!r}",
+            "list concepts of this file, e.g. same_sound: [water]",
+        )
+    return tuple(names)

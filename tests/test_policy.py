@@ -457,3 +457,30 @@ def test_a_music_bed_playing_from_the_first_second_needs_no_contrast() -> None:
     assert kept == {"m"}
     assert rules["n"] == rules["h"] == rules["k"] == "evidence"
     assert run([bed], replace(gate, opening_ms=0))[0] == set()  # the exemption switches off
+
+
+def test_near_synonym_concepts_of_one_moment_are_one_sound() -> None:
+    # "[rain falling]" / "[water flowing]" in one cue said one sound twice; the vocabulary
+    # marks such concepts `same_sound`, and the surer one names the sound.
+    rain = replace(event("r", "rain", 0, 9000, 0.7, kind=Kind.AMBIENCE), same_sound=("water",))
+    water = event("w", "water", 500, 9000, 0.6, kind=Kind.AMBIENCE)
+    clapping = replace(event("c", "clapping", 20000, 24000, 0.5), same_sound=("applause",))
+    applause = event("a", "applause", 20000, 25000, 0.8, kind=Kind.CONTINUOUS, parent="crowd")
+    elsewhere = event("x", "water", 40000, 45000, 0.6, kind=Kind.AMBIENCE)  # not the same moment
+    events = [rain, water, clapping, applause, elsewhere]
+    kept, rules = run(events, replace(OPEN, sibling_redundancy=True))
+    assert kept == {"r", "a", "x"} and rules["w"] == rules["c"] == "sibling"
+    assert run(events, OPEN)[0] == {"r", "w", "c", "a", "x"}
+
+
+def test_a_same_sound_concept_never_hides_a_more_important_one() -> None:
+    engine = event("v", "road_vehicle", 0, 5000, 0.9, kind=Kind.CONTINUOUS)
+    siren = replace(
+        event("s", "police_siren", 0, 5000, 0.6, kind=Kind.CONTINUOUS, priority=5),
+        same_sound=("road_vehicle",),
+    )
+    kept, rules = run([engine, siren], replace(OPEN, sibling_redundancy=True))
+    assert kept == {"v", "s"}  # the surer engine does not drop the siren
+    louder_siren = replace(siren, peak_score=0.95)
+    kept, rules = run([engine, louder_siren], replace(OPEN, sibling_redundancy=True))
+    assert kept == {"s"} and rules["v"] == "sibling"
