@@ -231,12 +231,16 @@ def build_parser() -> argparse.ArgumentParser:
     )
     batch.add_argument("--json", action="store_true", help="print the run summary as JSON on standard output")
 
-    commands.add_parser(
+    styles = commands.add_parser(
         "styles",
-        help="list the style presets",
-        epilog="examples:\n  captioner styles\n  captioner caption demo.mp4 --style capitals",
+        help="list the style presets, or print one preset's whole YAML to copy and edit",
+        epilog=(
+            "examples:\n  captioner styles\n  captioner styles capitals > house.yaml\n"
+            "  captioner caption demo.mp4 --style house.yaml"
+        ),
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
+    styles.add_argument("name", nargs="?", metavar="NAME", help="a preset to print in full")
 
     evaluate = commands.add_parser(
         "evaluate",

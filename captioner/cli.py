@@ -355,10 +355,17 @@ def _review(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
-def _styles(_args: argparse.Namespace) -> int:
+def _styles(args: argparse.Namespace) -> int:
+    from .errors import StyleError
     from .style import builtin_styles, load_style
 
-    for name, path in sorted(builtin_styles().items()):
+    presets = builtin_styles()
+    if args.name:
+        if args.name not in presets:
+            raise StyleError(args.name, "no such preset", f"use one of {', '.join(sorted(presets))}")
+        sys.stdout.write(presets[args.name].read_text(encoding="utf-8"))
+        return EXIT_OK
+    for name, path in sorted(presets.items()):
         style = load_style(str(path))
         print(f"{name:<10} {style.description}")
     return EXIT_OK

@@ -22,7 +22,7 @@ from .packs import LoadedPack
 from .policy import Decision, select_events
 from .scores import ScoreTrack, compute_scores
 from .style import Style
-from .vocabulary import Vocabulary
+from .vocabulary import Vocabulary, house_vocabulary
 
 
 def caption_track(
@@ -33,6 +33,7 @@ def caption_track(
     dialogue: tuple[Span, ...] | None = None,
 ) -> tuple[tuple[Span, ...], tuple[SoundEvent, ...], tuple[Decision, ...], tuple[Cue, ...]]:
     """The pure part: score track -> dialogue spans, events, decisions, cues."""
+    vocabulary = house_vocabulary(vocabulary, style.vocabulary, style.name)
     spans = speech_spans(track, vocabulary, style.detection) if dialogue is None else dialogue
     events = detect_events(track, vocabulary, style.detection)
     selected = select_events(events, spans, style.selection)
@@ -43,11 +44,13 @@ def caption_track(
 
 
 def check_style_fits_pack(style: Style, pack: LoadedPack) -> None:
-    """The patch hop must be a whole number of the pack's frames (10 ms for YAMNet).
+    """The patch hop must be a whole number of the pack's frames (10 ms for YAMNet), and a
+    house vocabulary may only name concepts of the pack.
 
     Raises:
         StyleError: it is not.
     """
+    house_vocabulary(pack.vocabulary, style.vocabulary, style.name)  # names only concepts it has
     frame_ms = pack.manifest.frontend.frame_ms
     frames = style.detection.patch_hop_ms / frame_ms
     if abs(frames - round(frames)) > 1e-6 or round(frames) < 1:

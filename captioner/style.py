@@ -17,6 +17,7 @@ from typing import Any, Literal
 import yaml
 
 from .errors import StyleError
+from .vocabulary import ConceptStyle
 
 
 @dataclass(frozen=True, slots=True)
@@ -132,8 +133,10 @@ class Style:
     detection: Detection = field(default_factory=Detection)
     selection: Selection = field(default_factory=Selection)
     merge: Merge = field(default_factory=Merge)
+    vocabulary: tuple[ConceptStyle, ...] = ()  # house wording, priorities and bans per concept
 
 
+_CONCEPT_FIELDS = ("wording", "noun", "priority", "banned")
 _SECTIONS = {
     "wording": Wording,
     "layout": Layout,
@@ -226,14 +229,19 @@ def style_from_mapping(data: Any, *, source: str = "style", default_name: str = 
         raise StyleError(
             source, "a style must be a YAML mapping of sections", "see `captioner styles` for an example"
         )
-    unknown = set(data) - set(_SECTIONS) - {"name", "description"}
+    unknown = set(data) - set(_SECTIONS) - {"name", "description", "vocabulary"}
     if unknown:
         raise StyleError(
-            source, f"unknown section(s) {', '.join(sorted(unknown))}", f"use {', '.join(_SECTIONS)}"
+            source,
+            f"unknown section(s) {', '.join(sorted(unknown))}",
+            f"use {', '.join(_SECTIONS)}, vocabulary",
         )
     sections = {name: _section(source, name, cls, data.get(name) or {}) for name, cls in _SECTIONS.items()}
     style = Style(
-        name=str(data.get("name", default_name)), description=str(data.get("description", "")), **sections
+        name=str(data.get("name", default_name)),
+        description=str(data.get("description", "")),
+        vocabulary=_house_vocabulary(source, data.get("vocabulary") or {}),
+        **sections,
     )
     _check_consistency(source, style)
     return style
@@ -253,6 +261,67 @@ def _section(source: str, name: str, cls: type, values: Any) -> Any:
     for key, value in values.items():
         _check_value(source, f"{name}.{key}", hints[key], value)
     return cls(**values)
+
+
+def _house_vocabulary(source: str, values: Any) -> tuple[ConceptStyle, ...]:
+    """The `vocabulary` section: concept id -> {wording: [bracketed, capitals], noun, priority, banned}.
+
+    Concept ids are checked against the model pack's vocabulary when a run starts.
+    """
+    if not isinstance(values, dict):
+        raise StyleError(
+            source, "section vocabulary must map concept ids to changes", "e.g. rain: {priority: 3}"
+        )
+    changes = []
+    for concept, spec in values.items():
+        label = f"vocabulary.{concept}"
+        if not isinstance(spec, dict) or not spec:
+            raise StyleError(
+                source, f"{label} must be a mapping of changes", f"give one of {', '.join(_CONCEPT_FIELDS)}"
+            )
+        unknown = sorted(set(spec) - set(_CONCEPT_FIELDS))
+        if unknown:
+            raise StyleError(
+                source,
+                f"unknown field(s) {', '.join(f'{label}.{k}' for k in unknown)}",
+                f"{label} takes {', '.join(_CONCEPT_FIELDS)}",
+            )
+        wording = spec.get("wording")
+        if wording is not None and not (
+            isinstance(wording, list)
+            and len(wording) == 2
+            and all(isinstance(w, str) and w.strip() for w in wording)
+        ):
+            raise StyleError(
+                source,
+                f"{label}.wording={wording!r} is not two texts",
+                "write [bracket wording, capitals wording]",
+            )
+        priority = spec.get("priority")
+        if priority is not None and (
+            isinstance(priority, bool) or not isinstance(priority, int) or not 1 <= priority <= 5
+        ):
+            raise StyleError(
+                source, f"{label}.priority={priority!r} is outside 1..5", "use a whole number 1..5"
+            )
+        noun, banned = spec.get("noun"), spec.get("banned", False)
+        if noun is not None and not (isinstance(noun, str) and noun.strip()):
+            raise StyleError(
+                source, f"{label}.noun={noun!r} must be a text", "name the sound, e.g. noun: rain"
+            )
+        if not isinstance(banned, bool):
+            raise StyleError(source, f"{label}.banned={banned!r} must be a bool", "use true or false")
+        changes.append(
+            ConceptStyle(
+                str(concept),
+                wording[0] if wording else None,
+                wording[1] if wording else None,
+                noun,
+                priority,
+                banned,
+            )
+        )
+    return tuple(changes)
 
 
 def _check_value(source: str, label: str, hint: Any, value: Any) -> None:

@@ -6,14 +6,14 @@ every class of the pack must appear in it exactly once.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from enum import Enum
 from pathlib import Path
 from typing import Any
 
 import yaml
 
-from .errors import PackError
+from .errors import PackError, StyleError
 
 
 class Kind(str, Enum):
@@ -59,6 +59,54 @@ class Vocabulary:
 
     def indices(self, kind: Kind) -> list[int]:
         return [e.index for e in self.entries if e.kind is kind]
+
+
+@dataclass(frozen=True, slots=True)
+class ConceptStyle:
+    """A house style's changes to one concept; None keeps the vocabulary's own value."""
+
+    concept: str
+    phrase: str | None = None  # bracket wording for every class of the concept
+    phrase_present: str | None = None  # capitals wording
+    noun: str | None = None  # end-cue noun
+    priority: int | None = None
+    banned: bool = False  # never captioned
+
+
+def house_vocabulary(vocabulary: Vocabulary, changes: tuple[ConceptStyle, ...], source: str) -> Vocabulary:
+    """The vocabulary with a style's house wording, priorities and bans applied.
+
+    Raises:
+        StyleError: a change names a concept the vocabulary does not have.
+    """
+    if not changes:
+        return vocabulary
+    known = vocabulary.concepts()
+    unknown = sorted(c.concept for c in changes if c.concept not in known)
+    if unknown:
+        raise StyleError(
+            source,
+            f"vocabulary.{unknown[0]} is not a concept of the model pack's vocabulary",
+            f"use a concept id such as {', '.join(list(known)[:4])} (see the pack's vocabulary file)",
+        )
+    by_concept = {c.concept: c for c in changes}
+    entries = []
+    for entry in vocabulary.entries:
+        change = by_concept.get(entry.concept)
+        if change is None:
+            entries.append(entry)
+            continue
+        entries.append(
+            replace(
+                entry,
+                phrase=change.phrase or entry.phrase,
+                phrase_present=change.phrase_present or entry.phrase_present,
+                noun=change.noun or entry.noun,
+                priority=change.priority or entry.priority,
+                kind=Kind.IGNORE if change.banned else entry.kind,
+            )
+        )
+    return Vocabulary(tuple(entries))
 
 
 def load_vocabulary(path: Path, labels: tuple[str, ...]) -> Vocabulary:
