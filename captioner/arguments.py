@@ -231,6 +231,19 @@ def build_parser() -> argparse.ArgumentParser:
     )
     batch.add_argument("--json", action="store_true", help="print the run summary as JSON on standard output")
 
+    check = commands.add_parser(
+        "check",
+        help="report every cue of a caption track that breaks a style's layout and timing, or WebVTT",
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+        epilog=(
+            "examples:\n  captioner check show.sounds.vtt\n  captioner check show.en.srt --style capitals\n"
+            "  captioner check show.merged.vtt --json > findings.json"
+        ),
+    )
+    check.add_argument("track", type=Path, metavar="TRACK", help="a .vtt or .srt file (hand-edited or not)")
+    check.add_argument("--style", default="brackets", help="style preset or .yaml file whose limits apply")
+    check.add_argument("--json", action="store_true", help="print the findings as JSON on standard output")
+
     styles = commands.add_parser(
         "styles",
         help="list the style presets, or print one preset's whole YAML to copy and edit",

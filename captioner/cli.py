@@ -355,6 +355,18 @@ def _review(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def _check(args: argparse.Namespace) -> int:
+    from .qc import check_track, report_json, report_lines
+    from .style import load_style
+
+    report = check_track(args.track, load_style(args.style))
+    if args.json:
+        print(json.dumps(report_json(report), indent=1))
+    else:
+        print("\n".join(report_lines(report)))
+    return EXIT_OK if report.ok else EXIT_SOME_FAILED
+
+
 def _styles(args: argparse.Namespace) -> int:
     from .errors import StyleError
     from .style import builtin_styles, load_style
@@ -380,6 +392,7 @@ _RUNNERS: dict[str, Callable[[argparse.Namespace], int]] = {
     "evaluate": _evaluate,
     "models": _models,
     "styles": _styles,
+    "check": _check,
 }
 
 
