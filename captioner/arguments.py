@@ -244,6 +244,23 @@ def build_parser() -> argparse.ArgumentParser:
     check.add_argument("--style", default="brackets", help="style preset or .yaml file whose limits apply")
     check.add_argument("--json", action="store_true", help="print the findings as JSON on standard output")
 
+    deliver = commands.add_parser(
+        "deliver",
+        help="write a clean copy of a track for publishing: no NOTE heading, no edit record",
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+        epilog=(
+            "examples:\n  captioner deliver show.sounds.vtt -o show.en.vtt\n"
+            "  captioner deliver show.merged.vtt -o upload/show.vtt --force"
+        ),
+    )
+    deliver.add_argument(
+        "track", type=Path, metavar="TRACK", help="the working track (.vtt/.srt); never changed"
+    )
+    deliver.add_argument(
+        "-o", "--output", type=Path, required=True, help="the clean copy, same format as TRACK"
+    )
+    deliver.add_argument("--force", action="store_true", help="replace an existing output file")
+
     styles = commands.add_parser(
         "styles",
         help="list the style presets, or print one preset's whole YAML to copy and edit",

@@ -367,6 +367,27 @@ def _check(args: argparse.Namespace) -> int:
     return EXIT_OK if report.ok else EXIT_SOME_FAILED
 
 
+def _deliver(args: argparse.Namespace) -> int:
+    from .formats import write_atomic
+    from .formats.delivery import delivery_text
+    from .formats.subtitles import read_track, subtitle_format
+
+    track = read_track(args.track)
+    if subtitle_format(args.output) != track.format:
+        raise OutputError(
+            args.output,
+            f"is not a .{track.format} file like {args.track.name}",
+            f"name a .{track.format} output",
+        )
+    # The working file is an input: it keeps its NOTE heading and edit record for --update.
+    _refuse_overwrite((args.output,), (args.track,), force=args.force)
+    write_atomic(args.output, delivery_text(track), force=args.force)
+    print(
+        f"captioner: {len(track.cues)} cue(s) written to {args.output} without NOTE blocks", file=sys.stderr
+    )
+    return EXIT_OK
+
+
 def _styles(args: argparse.Namespace) -> int:
     from .errors import StyleError
     from .style import builtin_styles, load_style
@@ -393,6 +414,7 @@ _RUNNERS: dict[str, Callable[[argparse.Namespace], int]] = {
     "models": _models,
     "styles": _styles,
     "check": _check,
+    "deliver": _deliver,
 }
 
 
