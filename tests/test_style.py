@@ -9,6 +9,7 @@ import pytest
 
 from captioner.errors import StyleError
 from captioner.style import builtin_styles, load_style
+from captioner.vocabulary import ConceptStyle
 
 
 def test_presets_follow_the_published_numbers() -> None:
@@ -132,3 +133,34 @@ def test_styles_name_prints_the_whole_preset(capsys: pytest.CaptureFixture[str])
     assert printed == builtin_styles()["capitals"].read_text(encoding="utf-8")
     assert "vocabulary:" in printed and "max_chars_per_line: 37" in printed
     assert main(["styles", "nope"]) == 2
+
+
+def test_a_banned_concept_is_never_captioned_and_house_wording_reaches_the_cue() -> None:
+    import numpy as np
+
+    from captioner.pipeline import caption_track
+    from captioner.scores import ScoreTrack
+    from captioner.vocabulary import ClassEntry, Kind, Vocabulary
+
+    vocabulary = Vocabulary(
+        (
+            ClassEntry(0, "Bark", "dog", "dog barking", "dog barks", Kind.TRANSIENT, 3, None),
+            ClassEntry(1, "Cluck", "poultry", "hen clucking", "hen clucks", Kind.TRANSIENT, 3, None),
+        )
+    )
+    scores = np.zeros((40, 2), np.float32)
+    scores[5:9, 0] = 0.9  # a dog at 2.4-4.3 s
+    scores[25:29, 1] = 0.9  # a hen at 12-14 s
+    energy = np.full(2000, -60.0, np.float32)
+    energy[240:440] = energy[1200:1400] = -20.0
+    track = ScoreTrack(scores, 480, 960, energy, 10.0, 20000)
+    plain = caption_track(track, vocabulary, load_style("brackets"))[3]
+    assert [c.text for c in plain] == ["[dog barking]", "[hen clucking]"]
+    house = dataclasses.replace(
+        load_style("brackets"),
+        vocabulary=(
+            ConceptStyle("dog", banned=True),
+            ConceptStyle("poultry", phrase="hens clucking", phrase_present="hens cluck"),
+        ),
+    )
+    assert [c.text for c in caption_track(track, vocabulary, house)[3]] == ["[hens clucking]"]
