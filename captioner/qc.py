@@ -108,56 +108,20 @@ def webvtt_findings(text: str) -> list[Finding]:
         timing = lines[1] if identifier else lines[0]
         payload = lines[2:] if identifier else lines[1:]
         match = _TIMING.match(timing)
-        if match is None:
-            found.append(
-                Finding(
-                    number,
-                    identifier,
-                    None,
-                    "webvtt",
-                    f"timing line {timing!r} is not hh:mm:ss.ttt --> hh:mm:ss.ttt",
-                )
-            )
-            continue
-        start, end = (_stamp_ms(match.group(i)) for i in (1, 2))
-        if end <= start:
-            found.append(
-                Finding(
-                    number, identifier, start, "webvtt", "ends before it starts (end must be after start)"
-                )
-            )
-        if start < previous_start:
-            found.append(
-                Finding(
-                    number,
-                    identifier,
-                    start,
-                    "webvtt",
-                    "starts before the cue above it (starts must not decrease)",
-                )
-            )
-        previous_start = max(previous_start, start)
-        if identifier and identifier in seen:
-            found.append(
-                Finding(
-                    number,
-                    identifier,
-                    start,
-                    "webvtt",
-                    f"identifier {identifier!r} is used twice (must be unique)",
-                )
-            )
-        seen.add(identifier)
-        if any("-->" in line for line in payload):
-            found.append(
-                Finding(
-                    number,
-                    identifier,
-                    start,
-                    "webvtt",
-                    'cue text holds "-->", which ends no cue but breaks players',
-                )
-            )
+        start = _stamp_ms(match.group(1)) if match else None
+        problems = [] if match else [f"timing line {timing!r} is not hh:mm:ss.ttt --> hh:mm:ss.ttt"]
+        if match and start is not None:
+            if _stamp_ms(match.group(2)) <= start:
+                problems.append("ends before it starts (end must be after start)")
+            if start < previous_start:
+                problems.append("starts before the cue above it (starts must not decrease)")
+            previous_start = max(previous_start, start)
+            if identifier and identifier in seen:
+                problems.append(f"identifier {identifier!r} is used twice (must be unique)")
+            seen.add(identifier)
+            if any("-->" in line for line in payload):
+                problems.append('cue text holds "-->", which ends no cue but breaks players')
+        found.extend(Finding(number, identifier, start, "webvtt", problem) for problem in problems)
     return found
 
 
