@@ -14,9 +14,11 @@ def build_parser() -> argparse.ArgumentParser:
     """Every command, option and worked example of the command line."""
     parser = argparse.ArgumentParser(
         prog="captioner",
-        description="Draft caption tracks for the non-speech sounds of a video (sound effects, music, reactions).",
+        description="Draft caption tracks for the non-speech sounds of a video (sound effects, music, "
+        "reactions).",
         formatter_class=argparse.RawDescriptionHelpFormatter,
-        epilog="examples:\n  captioner caption talk.mp4\n  captioner caption film.mkv --format srt --style capitals -o film.sounds.srt\n  captioner models install",
+        epilog="examples:\n  captioner caption talk.mp4\n  captioner caption film.mkv --format srt --style "
+        "capitals -o film.sounds.srt\n  captioner models install",
     )
     parser.add_argument("--version", action="version", version=f"captioner {__version__}")
     parser.add_argument("--debug", action="store_true", help="show tracebacks for errors")
@@ -51,14 +53,16 @@ def build_parser() -> argparse.ArgumentParser:
     caption.add_argument(
         "--merge",
         action="store_true",
-        help="write one track: the --dialogue cues unchanged plus the sound cues (default -o: INPUT.merged.vtt/.srt)",
+        help="write one track: the --dialogue cues unchanged plus the sound cues (default -o: "
+        "INPUT.merged.vtt/.srt)",
     )
     caption.add_argument(
         "--events-json",
         type=Path,
         nargs="?",
         const=DEFAULT_SIDECAR,
-        help="also write every detected event, decision and score curve as JSON (default path: NAME.sounds.json beside INPUT)",
+        help="also write every detected event, decision and score curve as JSON (default path: "
+        "NAME.sounds.json beside INPUT)",
     )
     caption.add_argument(
         "--model", default=None, help="model pack name or manifest path (default: yamnet-int8)"
@@ -79,7 +83,8 @@ def build_parser() -> argparse.ArgumentParser:
     caption.add_argument(
         "--update",
         action="store_true",
-        help="re-run over a .vtt you edited: keep every hand edit, addition and deletion, add new cues only where you did not work (rewrites --events-json too)",
+        help="re-run over a .vtt you edited: keep every hand edit, addition and deletion, add new cues only "
+        "where you did not work (rewrites --events-json too)",
     )
     caption.add_argument("--quiet", action="store_true", help="no progress or notices")
 
@@ -147,9 +152,11 @@ def build_parser() -> argparse.ArgumentParser:
         formatter_class=argparse.RawDescriptionHelpFormatter,
         epilog=(
             "examples:\n"
-            "  captioner review demo.mp4 -o demo.review.html          # uses demo.sounds.vtt and demo.sounds.json beside it\n"
+            "  captioner review demo.mp4 -o demo.review.html          # uses demo.sounds.vtt and "
+            "demo.sounds.json beside it\n"
             "  captioner review talk.wav --captions talk.sounds.srt --events-json talk.json -o talk.html\n"
-            "  captioner caption demo.mp4 --update                    # after saving your edits as demo.sounds.vtt"
+            "  captioner caption demo.mp4 --update                    # after saving your edits as "
+            "demo.sounds.vtt"
         ),
     )
     review.add_argument(
@@ -165,21 +172,24 @@ def build_parser() -> argparse.ArgumentParser:
     review.add_argument(
         "--events-json",
         type=Path,
-        help="sidecar from `caption --events-json`: score curves, dialogue, dropped candidates (default: NAME.sounds.json beside INPUT, if present)",
+        help="sidecar from `caption --events-json`: score curves, dialogue, dropped candidates (default: "
+        "NAME.sounds.json beside INPUT, if present)",
     )
     review.add_argument("-o", "--output", type=Path, required=True, help="HTML page to write")
     review.add_argument("--force", action="store_true", help="replace an existing page")
 
     batch = commands.add_parser(
         "batch",
-        help="caption every media file under a folder; resumable, on local worker processes or a Dask cluster",
+        help="caption every media file under a folder; resumable, on local worker processes or a Dask "
+        "cluster",
         formatter_class=argparse.RawDescriptionHelpFormatter,
         description=(
-            "Writes NAME.sounds.vtt (or .srt) and NAME.sounds.json beside each video, or mirrored under -o; where\n"
-            "NAME.srt or NAME.vtt dialogue subtitles sit beside a video they mark dialogue, and NAME.merged.* is\n"
-            "written too. A run manifest in the output folder lets a re-run skip unchanged files. An output a\n"
-            "person edited is never replaced: the new draft goes beside it as ....new. Cluster workers must see\n"
-            "the media under the same paths as this machine."
+            "Writes NAME.sounds.vtt (or .srt) and NAME.sounds.json beside each video, or mirrored\n"
+            "under -o; where NAME.srt or NAME.vtt dialogue subtitles sit beside a video they mark\n"
+            "dialogue, and NAME.merged.* is written too. A run manifest in the output folder lets a\n"
+            "re-run skip unchanged files. An output a person edited is never replaced: the new draft\n"
+            "goes beside it as ....new. Cluster workers must see the media under the same paths as\n"
+            "this machine."
         ),
         epilog=(
             "examples:\n"
@@ -274,18 +284,21 @@ def build_parser() -> argparse.ArgumentParser:
 
     evaluate = commands.add_parser(
         "evaluate",
-        help="measure caption quality (or, with --scores, classifier separability) against your own annotations",
+        help="measure caption quality (or, with --scores, classifier separability) against your own "
+        "annotations",
         formatter_class=argparse.RawDescriptionHelpFormatter,
         description=(
-            "A cue matches a truth event when its text holds one of the concept's keywords (whole word, any case)\n"
-            "and its span overlaps the event widened by the collar on both sides. Precision counts cues, recall\n"
-            "counts events. False alarms are cues in annotated clips with no truth events, per minute of them."
+            "A cue matches a truth event when its text holds one of the concept's keywords (whole\n"
+            "word, any case) and its span overlaps the event widened by the collar on both sides.\n"
+            "Precision counts cues, recall counts events. False alarms are cues in annotated clips\n"
+            "with no truth events, per minute of them."
         ),
         epilog=(
             "examples:\n"
             "  captioner evaluate truth.csv captions/                     # concepts.yaml beside truth.csv\n"
-            "  captioner evaluate truth.csv captions/ --dialogue dialogue.csv --durations files.csv --json report.json\n"
-            "  captioner evaluate truth.csv captions/ --scores            # needs NAME.sounds.json sidecars (--events-json)"
+            "  captioner evaluate truth.csv captions/ --dialogue dialogue.csv --durations files.csv \\\n"
+            "      --json report.json\n"
+            "  captioner evaluate truth.csv captions/ --scores   # needs NAME.sounds.json (--events-json)"
         ),
     )
     evaluate.add_argument(
@@ -295,7 +308,8 @@ def build_parser() -> argparse.ArgumentParser:
         "captions",
         type=Path,
         metavar="CAPTIONS_DIR",
-        help="folder with NAME.vtt/.srt or NAME.sounds.vtt/.srt (and NAME.json or NAME.sounds.json sidecars) per annotated clip",
+        help="folder with NAME.vtt/.srt or NAME.sounds.vtt/.srt (and NAME.json or NAME.sounds.json "
+        "sidecars) per annotated clip",
     )
     evaluate.add_argument(
         "--concepts",

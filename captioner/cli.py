@@ -136,7 +136,8 @@ def _caption(args: argparse.Namespace) -> int:
         counted = (
             f"{len(result.cues)} cue(s)"
             if merged is None
-            else f"{len(merged.cues)} cue(s), {sum(c.dialogue is not None for c in merged.cues)} of them dialogue,"
+            else f"{len(merged.cues)} cue(s), {sum(c.dialogue is not None for c in merged.cues)} of them "
+            "dialogue,"
         )
         say(f"{counted} written to {output}")
     return EXIT_OK
@@ -153,7 +154,10 @@ def _merge(args: argparse.Namespace) -> int:
     _, output = _merged_target(args.output, None, dialogue, args.dialogue_subs, None)
     _refuse_overwrite((output, args.events_json), (args.sound_cues, args.dialogue_subs), force=args.force)
     merged = merge_tracks(dialogue, sound_cues_from_track(read_track(args.sound_cues)), style)
-    note = f"Dialogue of {args.dialogue_subs.name} with the sound captions of {args.sound_cues.name}\nmerged by captioner {__version__}, style {style.name}; review before publishing"
+    note = (
+        f"Dialogue of {args.dialogue_subs.name} with the sound captions of {args.sound_cues.name}\nmerged "
+        f"by captioner {__version__}, style {style.name}; review before publishing"
+    )
     text = dumps_merged(merged, note)
     if output is None:
         sys.stdout.write(text)
@@ -173,7 +177,8 @@ def _merge(args: argparse.Namespace) -> int:
     if output is not None and not args.quiet:
         dropped = sum(o.action == "dropped" for o in merged.outcomes)
         print(
-            f"captioner: {len(merged.cues)} cue(s) written to {output}; {dropped} sound cue(s) left out (see --explain)",
+            f"captioner: {len(merged.cues)} cue(s) written to {output}; {dropped} sound cue(s) left out "
+            "(see --explain)",
             file=sys.stderr,
         )
     return EXIT_OK
@@ -190,7 +195,8 @@ def _merged_target(
         raise SubtitleError(
             dialogue_path,
             f"is {dialogue.format.upper()} but the merged track would be {wanted.upper()}",
-            f"write a .{dialogue.format} file: dialogue cues are carried over exactly, so the formats must match",
+            f"write a .{dialogue.format} file: dialogue cues are carried over exactly, so the formats must "
+            "match",
         )
     return wanted, path
 
@@ -349,7 +355,8 @@ def _review(args: argparse.Namespace) -> int:
         force=args.force,
     )
     print(
-        f"captioner: review page written to {args.output}; open it in a browser (it needs {args.input.name} at the same relative path)",
+        f"captioner: review page written to {args.output}; open it in a browser (it needs {args.input.name} "
+        "at the same relative path)",
         file=sys.stderr,
     )
     return EXIT_OK

@@ -54,7 +54,10 @@ def end_text(event: SoundEvent, wording: Wording) -> str:
     The end of music is a description, not music, so it is never set between notes.
 
     >>> from captioner.vocabulary import Kind
-    >>> rain = SoundEvent("e1", "rain", "Rain", "rain falling", "rain falls", Kind.AMBIENCE, 2, None, 0, 1, 0.8, 0.6, -20.0, -30.0)
+    >>> rain = SoundEvent(
+    ...     "e1", "rain", "Rain", "rain falling", "rain falls", Kind.AMBIENCE, 2, None,
+    ...     0, 1, 0.8, 0.6, -20.0, -30.0,
+    ... )
     >>> end_text(rain, Wording()), end_text(rain, Wording(case="upper", brackets=False))
     ('[rain stops]', 'RAIN STOPS')
     """
@@ -209,8 +212,8 @@ def unique_identifier(identifier: str, taken: set[str]) -> str:
     identifiers goes through here, so one file never mixes suffix schemes.
 
     >>> taken = {"e0001"}
-    >>> unique_identifier("e0001", taken), unique_identifier("e0001", taken), unique_identifier("e0002", taken)
-    ('e0001-2', 'e0001-3', 'e0002')
+    >>> [unique_identifier(name, taken) for name in ("e0001", "e0001", "e0002")]
+    ['e0001-2', 'e0001-3', 'e0002']
     """
     name, number = identifier, 1
     while name in taken:

@@ -250,7 +250,8 @@ def _frames(track: ScoreTrack, start_ms: float, end_ms: float) -> np.ndarray:
 
 
 def _levels(track: ScoreTrack, start_ms: int, end_ms: int) -> tuple[float, float, float]:
-    """(level, background, floor) in dBFS: 90th percentile inside, median and FLOOR_PERCENTILE within 5 s around."""
+    """(level, background, floor) in dBFS: the 90th percentile inside, and the median and
+    FLOOR_PERCENTILE of the frames within 5 s around."""
     inside = _frames(track, start_ms, end_ms)
     around = np.concatenate(
         [_frames(track, start_ms - 5000, start_ms), _frames(track, end_ms, end_ms + 5000)]

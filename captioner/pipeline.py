@@ -56,7 +56,8 @@ def check_style_fits_pack(style: Style, pack: LoadedPack) -> None:
     if abs(frames - round(frames)) > 1e-6 or round(frames) < 1:
         raise StyleError(
             style.name,
-            f"detection.patch_hop_ms={style.detection.patch_hop_ms} is not a whole number of the model pack's {frame_ms:g} ms frames",
+            f"detection.patch_hop_ms={style.detection.patch_hop_ms} is not a whole number of the model "
+            f"pack's {frame_ms:g} ms frames",
             f"use a multiple of {frame_ms:g} ms",
         )
 

@@ -81,7 +81,10 @@ def salience(event: SoundEvent, settings: Selection = _DEFAULTS) -> float:
     length_weight for 0..3 s of duration.
 
     >>> from captioner.vocabulary import Kind
-    >>> e = SoundEvent("e1", "dog", "Bark", "dog barking", "dog barks", Kind.TRANSIENT, 3, None, 0, 1500, 0.8, 0.6, -20.0, -30.0)
+    >>> e = SoundEvent(
+    ...     "e1", "dog", "Bark", "dog barking", "dog barks", Kind.TRANSIENT, 3, None,
+    ...     0, 1500, 0.8, 0.6, -20.0, -30.0,
+    ... )
     >>> round(salience(e), 3)
     0.9
     """
@@ -239,7 +242,8 @@ def _parents(
                     drop(
                         child,
                         "music",
-                        f"{child.label} {child.peak_score:.2f} < {settings.music_detail_confidence}: plain music wording",
+                        f"{child.label} {child.peak_score:.2f} < {settings.music_detail_confidence}: plain "
+                        "music wording",
                     )
                 break
             if _shared_ms(parent, child) * 2 < parent.duration_ms:
@@ -275,7 +279,8 @@ def _parents(
                 drop(
                     child,
                     "parent",
-                    f"unsure ({child.peak_score:.2f}); the broader {parent.concept} ({parent.event_id}) names it",
+                    f"unsure ({child.peak_score:.2f}); the broader {parent.concept} ({parent.event_id}) "
+                    "names it",
                 )
                 break
     return [by_id[e.event_id] for e in alive if e.event_id not in gone]
@@ -324,7 +329,8 @@ def _siblings(alive: list[SoundEvent], margin: float, drop: _Drop, notes: dict[s
                     # noun "": the end cue names the parent's phrase too
                     reworded[event.event_id] = replace(event, phrase=phrase, phrase_present=present, noun="")
                     notes[event.event_id] = (
-                        f"worded as {event.parent}: {other.concept} scored {other.peak_score:.2f}, too close to tell"
+                        f"worded as {event.parent}: {other.concept} scored {other.peak_score:.2f}, too "
+                        "close to tell"
                     )
     return [reworded.get(e.event_id, e) for e in alive if e.event_id not in gone]
 
@@ -461,7 +467,8 @@ def _repeats(
         drop(
             event,
             "repeat",
-            f"joined to {earlier.event_id}, the same sound {max(0, event.start_ms - earlier.end_ms)} ms after it",
+            f"joined to {earlier.event_id}, the same sound {max(0, event.start_ms - earlier.end_ms)} ms "
+            "after it",
         )
     return joined
 

@@ -148,7 +148,8 @@ def layout_findings(
             words = sum(len(line.split()) for line in lines)
             add(
                 "reading",
-                f"{words} word(s) in {shown / 1000:.2f} s is {words * 60000 / shown:.0f} wpm > {layout.reading_rate_wpm}",
+                f"{words} word(s) in {shown / 1000:.2f} s is {words * 60000 / shown:.0f} wpm > "
+                f"{layout.reading_rate_wpm}",
             )
         for line in lines:
             if len(line) > layout.max_chars_per_line:
@@ -163,7 +164,8 @@ def layout_findings(
             if 0 < gap < layout.min_gap_ms:
                 add(
                     "gap",
-                    f"gap of {gap / 1000:.2f} s after the cue above < {layout.min_gap_ms / 1000:g} s (close it or widen it)",
+                    f"gap of {gap / 1000:.2f} s after the cue above < {layout.min_gap_ms / 1000:g} s (close "
+                    "it or widen it)",
                 )
             if gap < _BACK_TO_BACK_MS:
                 repeated += sorted({line for line in lines if line in previous_lines} - set(repeated))
@@ -204,7 +206,8 @@ def report_lines(report: Report) -> list[str]:
         rows.append(f"{report.path.name}: {report.cues} cue(s), all within style {report.style}")
     else:
         rows.append(
-            f"{report.path.name}: {len(report.findings)} finding(s) in {flagged} of {report.cues} cue(s) against style {report.style}"
+            f"{report.path.name}: {len(report.findings)} finding(s) in {flagged} of {report.cues} cue(s) "
+            f"against style {report.style}"
         )
     return rows
 

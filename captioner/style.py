@@ -367,7 +367,8 @@ def _check_consistency(source: str, style: Style) -> None:
     if layout.min_duration_ms > layout.max_duration_ms:
         raise StyleError(
             source,
-            f"layout.min_duration_ms={layout.min_duration_ms} exceeds max_duration_ms={layout.max_duration_ms}",
+            f"layout.min_duration_ms={layout.min_duration_ms} exceeds "
+            f"max_duration_ms={layout.max_duration_ms}",
             "make the minimum smaller",
         )
     if (
@@ -375,7 +376,8 @@ def _check_consistency(source: str, style: Style) -> None:
     ):  # a moved sound cue would lag its sound beyond the tolerance
         raise StyleError(
             source,
-            f"selection.gap_shift_ms={selection.gap_shift_ms} exceeds layout.sync_tolerance_ms={layout.sync_tolerance_ms}",
+            f"selection.gap_shift_ms={selection.gap_shift_ms} exceeds "
+            f"layout.sync_tolerance_ms={layout.sync_tolerance_ms}",
             "make the gap move at most the sync tolerance",
         )
 

@@ -82,7 +82,8 @@ def test_repeated_lines(tmp_path: Path) -> None:
     # DCMP Captioning Key: a continuing sound is not captioned again from scratch.
     path = _vtt(
         tmp_path,
-        "00:00:01.000 --> 00:00:03.000\n[hens clucking]\n\n00:00:03.000 --> 00:00:05.000\n[hens clucking]\n[phone keypad beeping]",
+        "00:00:01.000 --> 00:00:03.000\n[hens clucking]\n\n00:00:03.000 --> 00:00:05.000\n[hens "
+        "clucking]\n[phone keypad beeping]",
     )
     assert _rules(path) == [(2, "repeat")]
 

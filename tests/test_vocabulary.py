@@ -46,7 +46,8 @@ def test_wording_has_both_conventions(pack: packs.LoadedPack) -> None:
 def test_duplicate_and_missing_labels_are_rejected(tmp_path: Path) -> None:
     twice = tmp_path / "twice.yaml"
     twice.write_text(
-        "a: {kind: transient, priority: 3, classes: {Bark: [x, y]}}\nb: {kind: transient, priority: 3, classes: {Bark: [x, y]}}\n"
+        "a: {kind: transient, priority: 3, classes: {Bark: [x, y]}}\nb: {kind: transient, priority: 3, "
+        "classes: {Bark: [x, y]}}\n"
     )
     with pytest.raises(PackError, match="mapped twice"):
         load_vocabulary(twice, ("Bark",))
