@@ -71,7 +71,7 @@ def _notices(quiet: bool) -> Callable[[str], None]:
 
 
 def _caption(args: argparse.Namespace) -> int:
-    from . import packs, pipeline, update
+    from . import media, packs, pipeline, update
     from .formats import merged_track_path, sound_track_path, write_atomic
     from .formats.merge import merge_table
     from .formats.subtitles import dialogue_spans, read_track
@@ -94,6 +94,7 @@ def _caption(args: argparse.Namespace) -> int:
     _refuse_overwrite((output, args.events_json), (args.input, args.dialogue), force=args.force or updating)
     dialogue = dialogue_spans(track.cues) if track is not None else None
     say = _notices(args.quiet)
+    media.probe(args.input)  # a mistyped or unreadable input fails before any model download
     pack = packs.load_pack(args.model or packs.DEFAULT_PACK, cache=packs.cache_root(), say=say)
     with progress_bar(enabled=not args.quiet, label=args.input.name) as bar:
         result = pipeline.caption_file(
@@ -135,7 +136,8 @@ def _caption(args: argparse.Namespace) -> int:
         counted = (
             f"{len(result.cues)} cue(s)"
             if merged is None
-            else f"{len(merged.cues)} cue(s), {sum(c.dialogue is not None for c in merged.cues)} of them dialogue,"
+            else f"{len(merged.cues)} cue(s), {sum(c.dialogue is not None for c in merged.cues)} of them "
+            "dialogue,"
         )
         say(f"{counted} written to {output}")
     return EXIT_OK
@@ -152,7 +154,10 @@ def _merge(args: argparse.Namespace) -> int:
     _, output = _merged_target(args.output, None, dialogue, args.dialogue_subs, None)
     _refuse_overwrite((output, args.events_json), (args.sound_cues, args.dialogue_subs), force=args.force)
     merged = merge_tracks(dialogue, sound_cues_from_track(read_track(args.sound_cues)), style)
-    note = f"Dialogue of {args.dialogue_subs.name} with the sound captions of {args.sound_cues.name}\nmerged by captioner {__version__}, style {style.name}; review before publishing"
+    note = (
+        f"Dialogue of {args.dialogue_subs.name} with the sound captions of {args.sound_cues.name}\nmerged "
+        f"by captioner {__version__}, style {style.name}; review before publishing"
+    )
     text = dumps_merged(merged, note)
     if output is None:
         sys.stdout.write(text)
@@ -172,7 +177,8 @@ def _merge(args: argparse.Namespace) -> int:
     if output is not None and not args.quiet:
         dropped = sum(o.action == "dropped" for o in merged.outcomes)
         print(
-            f"captioner: {len(merged.cues)} cue(s) written to {output}; {dropped} sound cue(s) left out (see --explain)",
+            f"captioner: {len(merged.cues)} cue(s) written to {output}; {dropped} sound cue(s) left out "
+            "(see --explain)",
             file=sys.stderr,
         )
     return EXIT_OK
@@ -189,7 +195,8 @@ def _merged_target(
         raise SubtitleError(
             dialogue_path,
             f"is {dialogue.format.upper()} but the merged track would be {wanted.upper()}",
-            f"write a .{dialogue.format} file: dialogue cues are carried over exactly, so the formats must match",
+            f"write a .{dialogue.format} file: dialogue cues are carried over exactly, so the formats must "
+            "match",
         )
     return wanted, path
 
@@ -403,7 +410,8 @@ def _review(args: argparse.Namespace) -> int:
         force=args.force,
     )
     print(
-        f"captioner: review page written to {args.output}; open it in a browser (it needs {args.input.name} at the same relative path)",
+        f"captioner: review page written to {args.output}; open it in a browser (it needs {args.input.name} "
+        "at the same relative path)",
         file=sys.stderr,
     )
     return EXIT_OK
@@ -444,10 +452,50 @@ def _review_served(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
-def _styles(_args: argparse.Namespace) -> int:
+def _check(args: argparse.Namespace) -> int:
+    from .qc import check_track, report_json, report_lines
+    from .style import load_style
+
+    report = check_track(args.track, load_style(args.style))
+    if args.json:
+        print(json.dumps(report_json(report), indent=1))
+    else:
+        print("\n".join(report_lines(report)))
+    return EXIT_OK if report.ok else EXIT_SOME_FAILED
+
+
+def _deliver(args: argparse.Namespace) -> int:
+    from .formats import write_atomic
+    from .formats.delivery import delivery_text
+    from .formats.subtitles import read_track, subtitle_format
+
+    track = read_track(args.track)
+    if subtitle_format(args.output) != track.format:
+        raise OutputError(
+            args.output,
+            f"is not a .{track.format} file like {args.track.name}",
+            f"name a .{track.format} output",
+        )
+    # The working file is an input: it keeps its NOTE heading and edit record for --update.
+    _refuse_overwrite((args.output,), (args.track,), force=args.force)
+    write_atomic(args.output, delivery_text(track), force=args.force)
+    print(
+        f"captioner: {len(track.cues)} cue(s) written to {args.output} without NOTE blocks", file=sys.stderr
+    )
+    return EXIT_OK
+
+
+def _styles(args: argparse.Namespace) -> int:
+    from .errors import StyleError
     from .style import builtin_styles, load_style
 
-    for name, path in sorted(builtin_styles().items()):
+    presets = builtin_styles()
+    if args.name:
+        if args.name not in presets:
+            raise StyleError(args.name, "no such preset", f"use one of {', '.join(sorted(presets))}")
+        sys.stdout.write(presets[args.name].read_text(encoding="utf-8"))
+        return EXIT_OK
+    for name, path in sorted(presets.items()):
         style = load_style(str(path))
         print(f"{name:<10} {style.description}")
     return EXIT_OK
@@ -463,6 +511,8 @@ _RUNNERS: dict[str, Callable[[argparse.Namespace], int]] = {
     "models": _models,
     "styles": _styles,
     "teach": _teach,
+    "check": _check,
+    "deliver": _deliver,
 }
 
 

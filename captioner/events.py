@@ -46,6 +46,8 @@ class SoundEvent:
     parent_wording: (
         tuple[str, str] | tuple[()]
     ) = ()  # the parent concept's (phrase, phrase_present), for sounds too close to tell apart
+    noun: str = ""  # the sound as a noun, for its end cue ("rain"); "" = derived from the phrase
+    same_sound: tuple[str, ...] = ()  # concepts that name this sound in other words
 
     @property
     def duration_ms(self) -> int:
@@ -209,6 +211,8 @@ def detect_events(track: ScoreTrack, vocabulary: Vocabulary, settings: Detection
                     generic=best.generic,
                     parent_wording=_wording(by_concept.get(best.parent or "", ())),
                     floor_db=floor,
+                    noun=best.noun,
+                    same_sound=best.same_sound,
                 )
             )
     found.sort(key=lambda e: (e.start_ms, -e.priority, e.concept))
@@ -260,7 +264,8 @@ def _frames(track: ScoreTrack, start_ms: float, end_ms: float) -> np.ndarray:
 
 
 def _levels(track: ScoreTrack, start_ms: int, end_ms: int) -> tuple[float, float, float]:
-    """(level, background, floor) in dBFS: 90th percentile inside, median and FLOOR_PERCENTILE within 5 s around."""
+    """(level, background, floor) in dBFS: the 90th percentile inside, and the median and
+    FLOOR_PERCENTILE of the frames within 5 s around."""
     inside = _frames(track, start_ms, end_ms)
     around = np.concatenate(
         [_frames(track, start_ms - 5000, start_ms), _frames(track, end_ms, end_ms + 5000)]

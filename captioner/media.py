@@ -229,7 +229,8 @@ def _check_damage(path: Path, message: str, decoded_ms: int, expected_ms: int | 
     if expected_ms and decoded_ms < 0.95 * expected_ms - 500:
         raise MediaError(
             path,
-            f"truncated or damaged: only {decoded_ms / 1000:.1f} s of its {expected_ms / 1000:.1f} s of audio decode ({_last_error_line(message, path)})",
+            f"truncated or damaged: only {decoded_ms / 1000:.1f} s of its {expected_ms / 1000:.1f} s of "
+            f"audio decode ({_last_error_line(message, path)})",
             "copy or export the file again",
         )
     count = sum(1 for line in message.splitlines() if line.strip())

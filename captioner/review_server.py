@@ -269,7 +269,8 @@ def save_track(
         }
     if len(track.cues) != count:
         return HTTPStatus.BAD_REQUEST, {
-            "error": f"the edited track reads back as {len(track.cues)} cue(s), not {count}; nothing was saved"
+            "error": f"the edited track reads back as {len(track.cues)} cue(s), not {count}; "
+            "nothing was saved"
         }
     if fmt == "vtt" and read_record(text) != read_record(on_disk):
         return HTTPStatus.BAD_REQUEST, {"error": "the edited track lost its update record; nothing was saved"}

@@ -143,9 +143,9 @@ def _capitals_run(tmp_path: Path) -> tuple[dict[str, Any], Any]:
     """A real sidecar of a `capitals` run in which "dog barking" was dropped."""
     import numpy as np
 
+    from captioner.captioned import Captioned
     from captioner.events import SoundEvent
     from captioner.formats.sidecar import sidecar
-    from captioner.pipeline import Captioned
     from captioner.policy import Decision
     from captioner.scores import ScoreTrack
     from captioner.style import load_style
@@ -215,8 +215,8 @@ def test_sidecar_curves_cover_the_concepts_that_can_become_captions(tmp_path: Pa
 def test_sidecar_curves_keep_small_scores_apart_on_one_line_each(tmp_path: Path) -> None:
     import numpy as np
 
+    from captioner.captioned import Captioned
     from captioner.formats.sidecar import dumps, sidecar
-    from captioner.pipeline import Captioned
     from captioner.scores import ScoreTrack
     from captioner.style import load_style
     from captioner.vocabulary import ClassEntry, Kind, Vocabulary
@@ -598,7 +598,8 @@ def test_undo_and_redo_step_through_edits(browser: Any, review_files: dict[str, 
 def _leaving_is_questioned(browser: Any) -> bool:
     return bool(
         browser.execute_script(
-            "const e = new Event('beforeunload', {cancelable: true}); window.dispatchEvent(e); return e.defaultPrevented"
+            "const e = new Event('beforeunload', {cancelable: true}); "
+            "window.dispatchEvent(e); return e.defaultPrevented"
         )
     )
 

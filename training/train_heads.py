@@ -176,7 +176,8 @@ def main() -> int:
     speech_dir = args.work / "clips" / "_speech"
     speech = [read_wav(p) for p in sorted(speech_dir.glob("*.wav"))]
     print(
-        f"{len(clips)} labelled clips, {len(negatives)} negatives, {len(speech)} speech beds; {len(heads)} heads"
+        f"{len(clips)} labelled clips, {len(negatives)} negatives, {len(speech)} speech beds; "
+        f"{len(heads)} heads"
     )
 
     cache = args.cache or args.work / "embeddings.npz"
@@ -234,7 +235,8 @@ def main() -> int:
     data = TrainingSet(features, labels, groups, tuple(heads))
     packages = sorted({r["package"] for r in clips})
     info = {
-        "trained_on": "openly licensed recordings from Debian packages plus synthesized alerts (training/clips.csv)",
+        "trained_on": "openly licensed recordings from Debian packages plus synthesized alerts "
+        "(training/clips.csv)",
         "packages": packages,
         "clips": len(clips),
         "synthesized_clips": sum(r.get("synthesized") == "1" for r in clips),

@@ -154,7 +154,8 @@ def main() -> int:
         after = measure({n: with_heads(t, heads) for n, t in base.items()}, pack, truth, score_map)
         print(f"\n### {ext.upper()} files: classes only -> with heads\n")
         print(
-            "| concept | scored by | events | AUC | AP | reached | AUC (heads) | AP (heads) | reached (heads) |"
+            "| concept | scored by | events | AUC | AP | reached "
+            "| AUC (heads) | AP (heads) | reached (heads) |"
         )
         print("|---|---|---:|---:|---:|---:|---:|---:|---:|")
         for concept in score_map:

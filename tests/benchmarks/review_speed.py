@@ -194,10 +194,12 @@ def main() -> int:
     print(f"| page load event | {summary(loaded)} |")
     print(f"| typing: one key in a cue's text, with layout ({len(keys)} keys) | {summary(keys)} |")
     print(
-        f"| timeline: one pan step at a 30 s view, with layout ({timeline['blocks']} cue blocks drawn) | {summary(timeline['steps'])} |"
+        f"| timeline: one pan step at a 30 s view, with layout ({timeline['blocks']} cue blocks drawn) "
+        f"| {summary(timeline['steps'])} |"
     )
     print(
-        f"| timeline: whole hour redrawn ({timeline['wholeBlocks']} cue blocks) | {summary(timeline['whole'])} |"
+        f"| timeline: whole hour redrawn ({timeline['wholeBlocks']} cue blocks) "
+        f"| {summary(timeline['whole'])} |"
     )
     print(f"| cue list: one 600 px scroll step, with layout | {summary(timeline['scroll'])} |")
     return 0

@@ -161,7 +161,8 @@ def main() -> None:
                 "end_to_end": "end to end (with heads)",
             }.get(stage, "decode (ffmpeg)")
             print(
-                f"| {minutes} min AAC | {label} | {r['seconds']:.1f} | {r['cpu_seconds']:.1f} | {minutes * 60 / r['seconds']:.0f}× | {r['peak_mb']:.0f} |",
+                f"| {minutes} min AAC | {label} | {r['seconds']:.1f} | {r['cpu_seconds']:.1f} | "
+                f"{minutes * 60 / r['seconds']:.0f}× | {r['peak_mb']:.0f} |",
                 flush=True,
             )
 
