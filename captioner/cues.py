@@ -49,8 +49,37 @@ def event_text(event: SoundEvent, wording: Wording) -> str:
 
 
 def end_text(event: SoundEvent, wording: Wording) -> str:
-    """Text for the end of a lasting sound, e.g. "[rain falling stops]"."""
-    return word(f"{event.phrase} stops", wording, music=event.kind is Kind.MUSIC)
+    """Text for the end of a lasting sound, by the sound's noun: "[rain stops]", "[music stops]".
+
+    The end of music is a description, not music, so it is never set between notes.
+
+    >>> from captioner.vocabulary import Kind
+    >>> rain = SoundEvent(
+    ...     "e1", "rain", "Rain", "rain falling", "rain falls", Kind.AMBIENCE, 2, None,
+    ...     0, 1, 0.8, 0.6, -20.0, -30.0,
+    ... )
+    >>> end_text(rain, Wording()), end_text(rain, Wording(case="upper", brackets=False))
+    ('[rain stops]', 'RAIN STOPS')
+    """
+    noun = event.noun or ("music" if event.kind is Kind.MUSIC else noun_of(event.phrase))
+    return word(f"{noun} {'stop' if _plural(noun) else 'stops'}", wording)
+
+
+def noun_of(phrase: str) -> str:
+    """The sound's name in an -ing phrase: the words before its first -ing verb.
+
+    >>> noun_of("rain falling"), noun_of("water running into sink"), noun_of("snoring")
+    ('rain', 'water', 'snoring')
+    """
+    words = phrase.split()
+    verb = next((i for i, w in enumerate(words) if i > 0 and w.endswith("ing")), len(words))
+    return " ".join(words[:verb])
+
+
+def _plural(noun: str) -> bool:
+    """Whether a noun takes "stop" rather than "stops" ("footsteps", not "bus" or "glass")."""
+    last = noun.split()[-1] if noun.split() else ""
+    return last.endswith("s") and not last.endswith(("ss", "us", "is"))
 
 
 def wrap(text: str, layout: Layout) -> tuple[str, ...]:
@@ -113,8 +142,11 @@ def _resolve(drafts: list[Cue], layout: Layout) -> tuple[tuple[Cue, ...], tuple[
     2. The earlier cue ends where the new one starts, when it has already been on screen
        for min_duration_ms (the new sound is news; the old caption has been read).
     3. The new cue waits until the earlier one ends, when that stays within sync_tolerance_ms.
-    4. Both texts show together from the new sound's onset, when the lines fit.
-    5. Otherwise the new cue is dropped, with a `layout` decision for its events.
+    4. The earlier cue ends where the new one starts, when it has been on screen for its
+       reading time: a continuing sound is not captioned again beside the new one (DCMP).
+    5. Both texts show together from the new sound's onset, when the lines fit.
+    6. Otherwise the new cue is dropped, with a `layout` decision for its events.
+    A line the earlier cue already shows is never repeated in the one it shares.
     """
     cues: list[Cue] = []
     dropped: list[Decision] = []
@@ -123,11 +155,12 @@ def _resolve(drafts: list[Cue], layout: Layout) -> tuple[tuple[Cue, ...], tuple[
             cues.append(cue)
             continue
         previous = cues[-1]
-        fits = len(previous.lines) + len(cue.lines) <= layout.max_lines
+        news = tuple(line for line in cue.lines if line not in previous.lines)  # one line per sound
+        fits = len(previous.lines) + len(news) <= layout.max_lines
         both = Cue(
             cue.start_ms,
             min(max(previous.end_ms, cue.end_ms), cue.start_ms + layout.max_duration_ms),
-            previous.lines + cue.lines,
+            previous.lines + news,
             previous.event_ids + cue.event_ids,
         )
         if fits and cue.start_ms - previous.start_ms <= layout.sync_tolerance_ms:
@@ -145,6 +178,9 @@ def _resolve(drafts: list[Cue], layout: Layout) -> tuple[tuple[Cue, ...], tuple[
                     end_ms=max(cue.end_ms, cue.start_ms + shift + layout.min_duration_ms),
                 )
             )
+        elif cue.start_ms - previous.start_ms >= reading_ms(previous.lines, layout):
+            cues[-1] = replace(previous, end_ms=cue.start_ms)
+            cues.append(cue)
         elif fits:
             # The continuation is named after the sound that starts it: the earlier cue keeps its id.
             cues[-1] = replace(previous, end_ms=cue.start_ms)
@@ -176,8 +212,8 @@ def unique_identifier(identifier: str, taken: set[str]) -> str:
     identifiers goes through here, so one file never mixes suffix schemes.
 
     >>> taken = {"e0001"}
-    >>> unique_identifier("e0001", taken), unique_identifier("e0001", taken), unique_identifier("e0002", taken)
-    ('e0001-2', 'e0001-3', 'e0002')
+    >>> [unique_identifier(name, taken) for name in ("e0001", "e0001", "e0002")]
+    ['e0001-2', 'e0001-3', 'e0002']
     """
     name, number = identifier, 1
     while name in taken:

@@ -332,7 +332,10 @@ def _store(task: _Task, drafted: Drafted, root: Path, manifest: RunManifest, tal
     )
     error = drafted.error
     if not error and drafted.pack_version != task.settings.pack_version:
-        error = f"{task.item.path}: worker {drafted.worker} has model pack version {drafted.pack_version}, the run expects {task.settings.pack_version}; install the same pack on every worker"
+        error = (
+            f"{task.item.path}: worker {drafted.worker} has model pack version {drafted.pack_version}, the "
+            f"run expects {task.settings.pack_version}; install the same pack on every worker"
+        )
     if error:
         manifest.save(dataclasses.replace(record, error=error, finished_at=time.time()))
         tally.last_error = error

@@ -15,7 +15,7 @@ import subprocess
 import tempfile
 import threading
 import warnings
-from collections.abc import Iterator
+from collections.abc import Iterable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -198,6 +198,30 @@ def decode_chunks(
         _check_damage(path, message, round(total * 1000 / sample_rate), expected_ms)
 
 
+def peak_envelope(chunks: Iterable[np.ndarray], *, sample_rate: int, hop_ms: int = 50) -> np.ndarray:
+    """Lowest and highest sample of every `hop_ms` window, read chunk by chunk as they decode.
+
+    Returns an int8 array of shape (n_windows, 2) (min, max, full scale = 127); the last
+    window may be shorter. An hour at 50 ms is 72,000 windows, 144 kB: small enough to embed.
+    """
+    window = sample_rate * hop_ms // 1000
+    if window <= 0:
+        raise ValueError(f"sample_rate={sample_rate} and hop_ms={hop_ms} give an empty window")
+    parts: list[np.ndarray] = []
+    rest = np.zeros(0, dtype=np.float32)
+    for chunk in chunks:
+        data = np.concatenate((rest, chunk))
+        whole = data.size - data.size % window
+        blocks = data[:whole].reshape(-1, window)
+        parts.append(np.stack((blocks.min(axis=1), blocks.max(axis=1)), axis=1))
+        rest = data[whole:]
+    if rest.size:
+        parts.append(np.array([[rest.min(), rest.max()]], dtype=np.float32))
+    if not parts:
+        return np.zeros((0, 2), dtype=np.int8)
+    return np.clip(np.round(np.concatenate(parts) * 127), -127, 127).astype(np.int8)
+
+
 def _check_damage(path: Path, message: str, decoded_ms: int, expected_ms: int | None) -> None:
     """Decoder errors: fatal when the audio also stops well short of its declared length."""
     # Container durations are estimates for some formats, so only a clear shortfall that
@@ -205,7 +229,8 @@ def _check_damage(path: Path, message: str, decoded_ms: int, expected_ms: int | 
     if expected_ms and decoded_ms < 0.95 * expected_ms - 500:
         raise MediaError(
             path,
-            f"truncated or damaged: only {decoded_ms / 1000:.1f} s of its {expected_ms / 1000:.1f} s of audio decode ({_last_error_line(message, path)})",
+            f"truncated or damaged: only {decoded_ms / 1000:.1f} s of its {expected_ms / 1000:.1f} s of "
+            f"audio decode ({_last_error_line(message, path)})",
             "copy or export the file again",
         )
     count = sum(1 for line in message.splitlines() if line.strip())

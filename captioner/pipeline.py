@@ -6,39 +6,23 @@ import dataclasses
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
-from typing import TYPE_CHECKING
 
 from threadpoolctl import threadpool_limits
 
-from . import media
+from . import __version__, media, update
+from .captioned import Captioned as Captioned  # re-exported: pipeline.Captioned
 from .cues import Cue, build_cues
 from .dialogue import speech_spans
 from .errors import StyleError
 from .events import SoundEvent, Span, detect_events
+from .formats import WRITERS, sidecar
+from .formats.merge import MergedTrack, dropped_decisions, dumps_merged, merge_json, merge_tracks
+from .formats.subtitles import SubtitleTrack
 from .packs import LoadedPack
 from .policy import Decision, select_events
 from .scores import ScoreTrack, compute_scores
 from .style import Style
-from .vocabulary import Vocabulary
-
-if TYPE_CHECKING:  # imported where used, as formats.sidecar imports this module
-    from .formats.merge import MergedTrack
-    from .formats.subtitles import SubtitleTrack
-
-
-@dataclass(frozen=True, slots=True)
-class Captioned:
-    """Everything one run produced, for writers, the sidecar and the explain table."""
-
-    source: Path
-    style: Style
-    pack_name: str
-    track: ScoreTrack
-    dialogue: tuple[Span, ...]
-    dialogue_source: str  # "classifier" or the subtitle file used
-    events: tuple[SoundEvent, ...]
-    decisions: tuple[Decision, ...]
-    cues: tuple[Cue, ...]
+from .vocabulary import Vocabulary, house_vocabulary
 
 
 def caption_track(
@@ -49,6 +33,7 @@ def caption_track(
     dialogue: tuple[Span, ...] | None = None,
 ) -> tuple[tuple[Span, ...], tuple[SoundEvent, ...], tuple[Decision, ...], tuple[Cue, ...]]:
     """The pure part: score track -> dialogue spans, events, decisions, cues."""
+    vocabulary = house_vocabulary(vocabulary, style.vocabulary, style.name)
     spans = speech_spans(track, vocabulary, style.detection) if dialogue is None else dialogue
     events = detect_events(track, vocabulary, style.detection)
     selected = select_events(events, spans, style.selection)
@@ -59,17 +44,20 @@ def caption_track(
 
 
 def check_style_fits_pack(style: Style, pack: LoadedPack) -> None:
-    """The patch hop must be a whole number of the pack's frames (10 ms for YAMNet).
+    """The patch hop must be a whole number of the pack's frames (10 ms for YAMNet), and a
+    house vocabulary may only name concepts of the pack.
 
     Raises:
         StyleError: it is not.
     """
+    house_vocabulary(pack.vocabulary, style.vocabulary, style.name)  # names only concepts it has
     frame_ms = pack.manifest.frontend.frame_ms
     frames = style.detection.patch_hop_ms / frame_ms
     if abs(frames - round(frames)) > 1e-6 or round(frames) < 1:
         raise StyleError(
             style.name,
-            f"detection.patch_hop_ms={style.detection.patch_hop_ms} is not a whole number of the model pack's {frame_ms:g} ms frames",
+            f"detection.patch_hop_ms={style.detection.patch_hop_ms} is not a whole number of the model "
+            f"pack's {frame_ms:g} ms frames",
             f"use a multiple of {frame_ms:g} ms",
         )
 
@@ -110,6 +98,7 @@ def caption_file(
             pack.manifest.frontend,
             hop_ms=style.detection.patch_hop_ms,
             level_spread_db=style.detection.level_spread_db,
+            heads=pack.heads,
             on_progress=progress,
         )
     spans, events, decisions, cues = caption_track(track, pack.vocabulary, style, dialogue=dialogue)
@@ -133,9 +122,6 @@ class Drafts:
 
     def events_json(self) -> str:
         """The JSON sidecar: every event, decision and score curve, plus the merge outcome."""
-        from .formats import sidecar
-        from .formats.merge import merge_json
-
         document = sidecar.sidecar(self.result, self.vocabulary)
         if self.merged is not None:
             document["merge"] = {
@@ -156,10 +142,6 @@ def draft_outputs(
 ) -> Drafts:
     """Render a captioned file: the sound track in `fmt` ("vtt" or "srt") and, given a
     dialogue track, that track merged with the sound cues."""
-    from . import __version__, update
-    from .formats import WRITERS
-    from .formats.merge import dropped_decisions, dumps_merged, merge_tracks
-
     note = (
         f"Sound captions drafted by captioner {__version__} from {result.source.name}\n"
         f"style {result.style.name}, model pack {result.pack_name}; review before publishing"

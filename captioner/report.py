@@ -7,9 +7,9 @@ from collections.abc import Iterator
 from contextlib import contextmanager
 from typing import Any
 
+from .captioned import Captioned
 from .formats.merge import ACTIONS, MergedTrack
 from .formats.webvtt import timestamp
-from .pipeline import Captioned
 
 _LONG_INPUT_MS = 30_000  # shorter inputs finish before a bar is worth drawing
 
@@ -59,18 +59,23 @@ def _clock(ms: int) -> str:
 def explain_table(result: Captioned) -> str:
     """One row per detected event: time, concept, score, level, decision and reason."""
     decisions = {d.event_id: d for d in result.decisions}
-    header = f"{'event':<6} {'start':>7} {'end':>7} {'concept':<18} {'score':>5} {'dB':>5}  {'decision':<10} reason"
+    header = (
+        f"{'event':<6} {'start':>7} {'end':>7} {'concept':<18} {'score':>5} {'dB':>5}  {'decision':<10} "
+        "reason"
+    )
     rows = [header, "-" * len(header)]
     for event in result.events:
         decision = decisions[event.event_id]
         verdict = "KEPT" if decision.kept else f"drop:{decision.rule}"
         rows.append(
-            f"{event.event_id:<6} {_clock(event.start_ms):>7} {_clock(event.end_ms):>7} {event.concept[:18]:<18} "
+            f"{event.event_id:<6} {_clock(event.start_ms):>7} {_clock(event.end_ms):>7} "
+            f"{event.concept[:18]:<18} "
             f"{event.peak_score:5.2f} {event.contrast_db:+5.0f}  {verdict:<10} {decision.detail}"
         )
     kept = sum(d.kept for d in result.decisions)
     rows.append(
-        f"{len(result.events)} events detected, {kept} kept, {len(result.cues)} cues; dialogue from {result.dialogue_source}"
+        f"{len(result.events)} events detected, {kept} kept, {len(result.cues)} cues; dialogue from "
+        f"{result.dialogue_source}"
     )
     return "\n".join(rows)
 

@@ -76,7 +76,8 @@ class Summary:
 
     def line(self) -> str:
         return (
-            f"kept {self.kept_edited} edited and {self.kept_added} hand-added cue(s), respected {self.deleted} deletion(s); "
+            f"kept {self.kept_edited} edited and {self.kept_added} hand-added cue(s), respected "
+            f"{self.deleted} deletion(s); "
             f"{self.new_written} machine cue(s) written, {self.new_skipped} skipped where you had worked"
         )
 

@@ -177,12 +177,14 @@ def dispatch(
                         broken = True
                         yield Drafted(
                             job.relative,
-                            f"{job.media}: the worker process stopped while captioning it (out of memory, or a crash); run again with --retry-failed",
+                            f"{job.media}: the worker process stopped while captioning it (out of memory, "
+                            "or a crash); run again with --retry-failed",
                         )
                     except Exception as exc:
                         yield Drafted(
                             job.relative,
-                            f"{job.media}: the worker failed ({type(exc).__name__}: {exc}); run again with --retry-failed",
+                            f"{job.media}: the worker failed ({type(exc).__name__}: {exc}); run again with "
+                            "--retry-failed",
                         )
                 if broken:
                     close(interrupted=True)

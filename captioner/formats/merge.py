@@ -29,8 +29,8 @@ from ..cues import Cue, unique_identifier
 from ..errors import SubtitleError
 from ..policy import Decision
 from ..style import Style
-from . import srt as srt_writer
 from . import webvtt as vtt_writer
+from .delivery import delivery_text
 from .placement import ACTIONS, Board, MergedCue, SoundOutcome, pieces
 from .subtitles import SubtitleCue, SubtitleFormat, SubtitleTrack, parse_subtitles, plain_lines
 from .textblocks import blocks
@@ -115,10 +115,11 @@ def sound_priority(cue: Cue, priorities: Mapping[str, int] | None = None) -> int
     """The cue's priority: from its events when known, else from its wording in the bundled
     vocabulary; wording it does not know counts as an alert (5), so it is never left out.
 
-    >>> sound_priority(Cue(0, 1, ("[dog barking]",), ("x",))), sound_priority(Cue(0, 1, ("PHONE RINGS",), ("x",)))
-    (3, 4)
-    >>> sound_priority(Cue(0, 1, ("[dog barking]",), ("e1-end",)), {"e1": 2}), sound_priority(Cue(0, 1, ("[tuba]",), ()))
-    (2, 5)
+    >>> dog, phone = Cue(0, 1, ("[dog barking]",), ("e1-end",)), Cue(0, 1, ("PHONE RINGS",), ("x",))
+    >>> sound_priority(dog), sound_priority(phone), sound_priority(dog, {"e1": 2})
+    (3, 4, 2)
+    >>> sound_priority(Cue(0, 1, ("[tuba]",), ()))
+    5
     """
     given = priorities or {}
     known = [given[i.removesuffix("-end")] for i in cue.event_ids if i.removesuffix("-end") in given]
@@ -379,12 +380,4 @@ def _refuse_sound_tracks(dialogue: SubtitleTrack, sounds: Sequence[Cue], toleran
 
 def _with_source(track: SubtitleTrack) -> SubtitleTrack:
     """A track built in code, written out and read back so the merge can work on its text."""
-    if track.format == "srt":
-        text = srt_writer.dumps_text([(c.start_ms, c.end_ms, c.text) for c in track.cues])
-    else:
-        cue_blocks = [
-            vtt_writer.cue_block(c.start_ms, c.end_ms, c.text, identifier=c.identifier, settings=c.settings)
-            for c in track.cues
-        ]
-        text = vtt_writer.document(cue_blocks, header_blocks=track.header_blocks)
-    return parse_subtitles(text, track.format, name=track.name)
+    return parse_subtitles(delivery_text(track), track.format, name=track.name)

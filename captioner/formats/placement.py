@@ -258,7 +258,8 @@ class Board:
                         return outcome(
                             "moved",
                             slot,
-                            f"shortened to end at {vtt_writer.timestamp(slot[1])}, in the gap before the dialogue",
+                            f"shortened to end at {vtt_writer.timestamp(slot[1])}, in the gap before the "
+                            "dialogue",
                         )
                     return outcome(
                         "moved", slot, f"moved {slot[0] - piece.start_ms:+d} ms into a dialogue gap"
@@ -333,9 +334,15 @@ class Board:
             if len(lines) > self.layout.max_lines:
                 why = f"with the dialogue it would make {len(lines)} lines (limit {self.layout.max_lines})"
             elif longest > self.layout.max_chars_per_line:
-                why = f"with the dialogue it would have a {longest}-character line (limit {self.layout.max_chars_per_line})"
+                why = (
+                    f"with the dialogue it would have a {longest}-character line (limit "
+                    f"{self.layout.max_chars_per_line})"
+                )
             elif d.end_ms - d.start_ms < read:
-                why = f"with the dialogue it needs {read} ms on screen, the cue lasts {d.end_ms - d.start_ms} ms"
+                why = (
+                    f"with the dialogue it needs {read} ms on screen, the cue lasts {d.end_ms - d.start_ms} "
+                    "ms"
+                )
             else:
                 return i, ""
         return None, why

@@ -7,9 +7,9 @@ import re
 from collections.abc import Mapping
 from typing import Any
 
+from ..captioned import Captioned
 from ..cues import event_text
 from ..events import concept_curves
-from ..pipeline import Captioned
 from ..vocabulary import Vocabulary
 
 SIDECAR_VERSION = 1

@@ -390,7 +390,8 @@ def test_the_summary_counts_a_dialogue_cue_that_gained_a_sound_line(tmp_path: Pa
     assert [s.content for s in srt.parse(out.decode("utf-8"))] == ["Down, boy!\n[dog barking]", "Good dog."]
     summary = [line for line in err if "untouched" in line and line.startswith("captioner: ")]
     assert summary[-1].endswith(
-        "scene.merged.srt: 1 dialogue cue(s) untouched, 1 with a sound line added; 0 sound cue(s) of their own, 0 left out (see --explain)"
+        "scene.merged.srt: 1 dialogue cue(s) untouched, 1 with a sound line added; "
+        "0 sound cue(s) of their own, 0 left out (see --explain)"
     )
     assert any(
         "sound line added to the dialogue cue at 00:00:01.000" in line and "line 2" in line for line in err
@@ -465,7 +466,8 @@ def test_an_srt_fraction_of_one_digit_is_read_as_tenths_with_a_warning_naming_th
     tmp_path: Path,
 ) -> None:
     raw = b"1\n0:00:03,5 --> 0:00:05,000\nHi there.\n\n2\n00:00:08,000 --> 00:00:09,25\nBye.\n"
-    # the srt library reads the digits as milliseconds (3.005 s); subtitle software reads 3.5 s (common practice)
+    # the srt library reads the digits as milliseconds (3.005 s); subtitle software reads 3.5 s
+    # (common practice)
     assert next(srt.parse(raw.decode())).start == timedelta(seconds=3, milliseconds=5)
     (tmp_path / "scene.srt").write_bytes(raw)
     with pytest.warns(UserWarning) as caught:
