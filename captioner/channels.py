@@ -1,11 +1,11 @@
 """Channels: fold any layout into the signal a listener hears, and notice when that fold cancels.
 
-ffmpeg's automatic downmix to mono normalises its matrix over every channel: measured on
-5.1, a front channel came out 21 dB down, the centre 18 dB, the surrounds 24 dB and the LFE
-not at all, so a music bed in the front and surround channels was scored near silence.
-Here the fold is our own `pan` filter with the ITU-R BS.775 stereo downmix coefficients
-(centre and surrounds at -3 dB into left and right; from memory of the recommendation) and
-the LFE at -6 dB (common practice), then left and right into mono at -3 dB each, as before.
+ffmpeg's automatic mono mix of 5.1 (measured one channel at a time: fronts -3 dB, centre
+0 dB, surrounds -6 dB) leaves the LFE out, and a music bed carried by the surrounds in
+anti-phase (a common way to widen them) cancels to silence: such a bed was never captioned.
+Here the fold is our own `pan` filter with the same ITU-R BS.775 stereo downmix coefficients
+(centre and surrounds at -3 dB into left and right; from memory of the recommendation) plus
+the LFE at -6 dB (common practice), then left and right into mono at -3 dB each.
 
 ffmpeg emits two channels: mid = 0.707 (L + R), the mono mix, and side = 0.707 (L - R).
 Mid and side together carry the channels' power (P_mid + P_side = P_L + P_R), so a mid far

@@ -88,6 +88,8 @@ def decode_chunks(
                 except queue.Empty:
                     pass
             process.wait()
+            if process.stdout is not None:
+                process.stdout.close()
         errors.seek(0)
         message = errors.read().decode("utf-8", "replace")
     if process.returncode != 0:
