@@ -13,6 +13,7 @@ from threadpoolctl import threadpool_limits
 from . import media
 from .cues import Cue, build_cues
 from .dialogue import speech_spans
+from .dialogue_sources import embedded_dialogue, embedded_stream
 from .errors import StyleError
 from .events import SoundEvent, Span, detect_events
 from .packs import LoadedPack
@@ -39,6 +40,24 @@ class Captioned:
     events: tuple[SoundEvent, ...]
     decisions: tuple[Decision, ...]
     cues: tuple[Cue, ...]
+    stream: media.AudioStream | None = None  # the audio stream captioned
+    streams: tuple[media.AudioStream, ...] = ()  # every audio stream of the file
+
+    def stream_line(self) -> str:
+        """The NOTE heading's line naming the stream, for files with more than one."""
+        if self.stream is None or len(self.streams) < 2:
+            return ""
+        return f"audio stream {self.stream.label()} of {len(self.streams)}"
+
+    def empty_stream_notice(self) -> str:
+        """One line when the chosen stream gave no cues although the file has other streams."""
+        if self.cues or self.stream is None or len(self.streams) < 2:
+            return ""
+        others = "; ".join(s.label() for s in self.streams if s.index != self.stream.index)
+        return (
+            f"{self.source}: audio stream {self.stream.label()} gave no cues; the file has other audio "
+            f"streams ({others}): list them with `captioner streams` and choose one with --audio-stream"
+        )
 
 
 def caption_track(
@@ -79,16 +98,18 @@ def caption_file(
     pack: LoadedPack,
     style: Style,
     *,
-    audio_stream: int | None = None,
+    audio_stream: int | str | None = None,
     dialogue: tuple[Span, ...] | None = None,
     dialogue_source: str = "classifier",
+    dialogue_language: str | None = None,
     on_start: Callable[[int | None], None] | None = None,
     on_progress: Callable[[int], None] | None = None,
 ) -> Captioned:
     """Decode, classify and caption one file.
 
     `on_start` receives the duration in ms (None when unknown) before decoding begins;
-    `on_progress` receives ms of audio processed after each chunk.
+    `on_progress` receives ms of audio processed after each chunk. Without `dialogue`, a
+    text subtitle stream inside the file (of `dialogue_language` when given) marks dialogue.
 
     Raises:
         MediaError: the file cannot be probed or decoded.
@@ -96,6 +117,11 @@ def caption_file(
     check_style_fits_pack(style, pack)
     info = media.probe(path)
     stream = info.choose_stream(audio_stream)
+    if dialogue is None and (embedded := embedded_stream(info, dialogue_language)) is not None:
+        dialogue = embedded_dialogue(info, embedded)
+        dialogue_source = f"{path.name} subtitle stream {embedded.index}" + (
+            f" ({embedded.language})" if embedded.language else ""
+        )
     if on_start:
         on_start(info.duration_ms)
     rate = pack.manifest.frontend.sample_rate
@@ -113,7 +139,19 @@ def caption_file(
             on_progress=progress,
         )
     spans, events, decisions, cues = caption_track(track, pack.vocabulary, style, dialogue=dialogue)
-    return Captioned(path, style, pack.manifest.name, track, spans, dialogue_source, events, decisions, cues)
+    return Captioned(
+        path,
+        style,
+        pack.manifest.name,
+        track,
+        spans,
+        dialogue_source,
+        events,
+        decisions,
+        cues,
+        stream,
+        info.audio_streams,
+    )
 
 
 @dataclass(frozen=True, slots=True)
@@ -164,6 +202,8 @@ def draft_outputs(
         f"Sound captions drafted by captioner {__version__} from {result.source.name}\n"
         f"style {result.style.name}, model pack {result.pack_name}; review before publishing"
     )
+    if result.stream_line():
+        note += "\n" + result.stream_line()
     merged, merged_text = None, None
     if merge_with is not None:
         merged = merge_tracks(merge_with, result.cues, result.style)
