@@ -3,6 +3,8 @@ timing and layout rules exactly (Hypothesis generates the events)."""
 
 from __future__ import annotations
 
+import itertools
+
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
@@ -56,7 +58,7 @@ def check_rules(events: list[SoundEvent], duration: int, style: Style) -> None:
         # Lines and characters (BBC Subtitle Guidelines: 37 characters, two lines for capitals).
         assert len(cue.lines) <= layout.max_lines, cue
         assert all(len(line) <= layout.max_chars_per_line for line in cue.lines), cue
-    for current, following in zip(cues, cues[1:]):
+    for current, following in itertools.pairwise(cues):
         gap = following.start_ms - current.end_ms
         # No overlap; a gap is either none or at least the style's minimum (BBC: 1 s between captions).
         assert gap == 0 or gap >= layout.min_gap_ms, (current, following)

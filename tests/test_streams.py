@@ -9,6 +9,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from test_channels import _music
 
 from captioner import library, media
 from captioner.cli import main
@@ -16,7 +17,6 @@ from captioner.dialogue_sources import embedded_dialogue, embedded_stream
 from captioner.report import _clock
 from captioner.style import load_style
 from conftest import run_ffmpeg, tone, write_wav
-from test_channels import _music
 
 # Dialogue cues of the subtitle tracks built below: (start s, end s).
 CUES = ((1.0, 2.5), (3.2, 4.0))
