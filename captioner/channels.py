@@ -108,5 +108,5 @@ def fold(mid_side: np.ndarray) -> Fold:
     side_power = float(np.dot(side, side)) / max(side.size, 1)
     total = mid_power + side_power
     if total > _SILENCE_POWER and mid_power < CANCEL_RATIO * total:
-        return Fold(np.ascontiguousarray(side), True)
-    return Fold(np.ascontiguousarray(mid), False)
+        return Fold(side.copy(), True)  # a copy: the caller reuses its buffer
+    return Fold(mid.copy(), False)

@@ -22,7 +22,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .channels import fold, mid_side_pan
+from .channels import Fold, fold, mid_side_pan
 from .errors import MediaError
 from .probing import (
     AudioStream,
@@ -62,14 +62,13 @@ def decode_chunks(
     chunk_bytes = int(chunk_seconds * sample_rate) * 4 * 2  # interleaved mid and side
     with tempfile.TemporaryFile() as errors:
         process = subprocess.Popen(args, stdout=subprocess.PIPE, stderr=errors)
-        chunks: queue.Queue[bytes | None] = queue.Queue(maxsize=3)
+        chunks: queue.Queue[Fold | None] = queue.Queue(maxsize=3)
         reader = threading.Thread(target=_pump, args=(process, chunk_bytes, chunks), daemon=True)
         reader.start()
         total = 0
         warned = False
         try:
-            while (data := chunks.get()) is not None:
-                folded = fold(np.frombuffer(data, dtype="<f4"))
+            while (folded := chunks.get()) is not None:
                 total += folded.samples.size
                 if folded.cancelled and not warned:
                     warned = True
@@ -149,16 +148,17 @@ def _check_damage(path: Path, message: str, decoded_ms: int, expected_ms: int | 
     )
 
 
-def _pump(process: subprocess.Popen[bytes], chunk_bytes: int, chunks: queue.Queue[bytes | None]) -> None:
-    """Move ffmpeg's output into the queue in whole-chunk blocks (runs in a thread)."""
+def _pump(process: subprocess.Popen[bytes], chunk_bytes: int, chunks: queue.Queue[Fold | None]) -> None:
+    """Move ffmpeg's output into the queue in whole-chunk blocks, folded to mono (runs in a
+    thread, so the queue holds mono chunks and the fold overlaps with classification)."""
     assert process.stdout is not None
     pending = bytearray()
     while block := process.stdout.read(chunk_bytes - len(pending)):
         pending += block
         if len(pending) >= chunk_bytes:
-            chunks.put(bytes(pending))
+            chunks.put(fold(np.frombuffer(pending, dtype="<f4")))
             pending.clear()
     usable = len(pending) - len(pending) % 8  # whole (mid, side) pairs
     if usable:
-        chunks.put(bytes(pending[:usable]))
+        chunks.put(fold(np.frombuffer(pending[:usable], dtype="<f4")))
     chunks.put(None)
