@@ -69,7 +69,7 @@ MEDIA_EXTENSIONS = frozenset(
         *(".wav", ".mp3", ".m4a", ".aac", ".flac", ".ogg", ".oga", ".opus", ".wma", ".aif", ".aiff"),
     }
 )
-_OUTPUT_LAYOUT = 1  # bump when output names or contents change for the same settings
+_OUTPUT_LAYOUT = 2  # bump when output names or contents change for the same settings
 
 
 # -- finding the library ----------------------------------------------------------------------
