@@ -4,10 +4,11 @@ ffmpeg does the decoding in its own process; a reader thread keeps its pipe drai
 decoding overlaps with classification. Probing (`captioner.probing`) reads ffmpeg's own
 description of the input, since the imageio-ffmpeg binary has no ffprobe.
 
-Time zero is the container's start, where a player's clock reads zero. ffmpeg keeps the
-stream's own timestamps (`-copyts`, which honour MP4 edit lists, Matroska codec delay and
-MPEG-TS start times), they are shifted by the container start, and `aresample` pads the
-leading gap (and any later gap) with silence, so sample n plays at n / rate seconds.
+Time zero is the container's start, where a player's clock reads zero: ffmpeg measures
+every stream from it (honouring MP4 edit lists, Matroska/WebM codec delay and MPEG-TS start
+times, and correcting TS timestamp jumps), and `aresample` pads the leading gap (and any
+later gap) with silence, so sample n plays at n / rate seconds. For TS-like formats ffmpeg
+measures from the first stream in use, so the video is kept in use (copied to a null output).
 """
 
 from __future__ import annotations
@@ -105,10 +106,11 @@ def decode_chunks(
 
 
 def _command(path: Path, stream: AudioStream, sample_rate: int) -> list[str]:
-    """The ffmpeg command: the stream on the player's clock, folded to (mid, side), at `sample_rate`."""
-    # The input-side -vn/-sn/-dn keep the demuxer from handing over other streams, and
-    # whole-second frames make ffmpeg write the pipe in large blocks: both save CPU that
-    # the classifier needs on a 2-core machine.
+    """The ffmpeg command: the stream on the player's clock, folded to (mid, side), at `sample_rate`.
+
+    Whole-second frames (asetnsamples) make ffmpeg write the pipe in large blocks, which
+    saves CPU that the classifier needs on a 2-core machine.
+    """
     pan = mid_side_pan(stream.channels)
     filters = []
     if pan is None:  # a layout without channel names: ffmpeg's own mono mix, and no side
@@ -117,17 +119,21 @@ def _command(path: Path, stream: AudioStream, sample_rate: int) -> list[str]:
     filters += [
         f"pan={pan}",
         "aformat=sample_fmts=flt:channel_layouts=stereo",
-        f"asetpts=PTS-{stream.zero_s:.6f}/TB",
         # async: pad the gap before the first sample (and any later gap) with silence, and
         # drop what lies before zero, so samples sit on the player's clock.
         f"aresample={sample_rate}:async=1:first_pts=0",
         f"asetnsamples=n={sample_rate}:p=0",
     ]
+    # The input-side -vn/-sn/-dn keep the demuxer from handing over other streams (a saving
+    # on a 2-core machine), except the video where the format re-bases time on it.
+    skip = ("-sn", "-dn") if stream.rebased else ("-vn", "-sn", "-dn")
+    clock = ("-map", "0:v?", "-c", "copy", "-f", "null", "-") if stream.rebased else ()
     return [
         ffmpeg_executable(),
-        *("-nostdin", "-v", "error", "-copyts", "-vn", "-sn", "-dn", "-i", input_url(path)),
+        *("-nostdin", "-v", "error", *skip, "-i", input_url(path)),
         *("-map", f"0:a:{stream.index}", "-af", ",".join(filters)),
         *("-f", "f32le", "-acodec", "pcm_f32le", "-ac", "2", "-ar", str(sample_rate), "pipe:"),
+        *clock,
     ]
 
 

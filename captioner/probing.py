@@ -3,7 +3,7 @@
 The imageio-ffmpeg binary ships no ffprobe, so this parses what `ffmpeg -i FILE` prints:
 one `Stream #0:N(lang): Kind: ...` line per stream, its `title` metadata below it, and the
 container's `Duration: ..., start: S` line. The container start is where a player's clock
-reads zero; decoding measures every stream against it.
+reads zero.
 """
 
 from __future__ import annotations
@@ -27,6 +27,10 @@ _DURATION = re.compile(r"Duration: (\d+):(\d\d):(\d\d(?:\.\d+)?)")
 _START = re.compile(r"Duration: [^\n]*?start: (-?\d+(?:\.\d+)?)")
 _STREAM_START = re.compile(r", start (-?\d+(?:\.\d+)?)")
 _CHANNELS = re.compile(r"\d+ Hz, ([^,]+)")
+_DEMUXER = re.compile(r"^Input #0, (.*?), from ", re.MULTILINE)
+# Demuxers flagged AVFMT_TS_DISCONT (from memory of libavformat): ffmpeg corrects their
+# timestamp jumps and, on the first packet, re-bases their start on the streams in use.
+_REBASING = frozenset({"mpegts", "mpegtsraw", "mpeg", "mpegvideo", "flv", "hls", "live_flv"})
 # Subtitle codecs that carry text (bitmap subtitles such as PGS or DVB cannot be read as dialogue).
 TEXT_SUBTITLE_CODECS = frozenset({"mov_text", "subrip", "srt", "webvtt", "ass", "ssa", "text"})
 
@@ -43,7 +47,9 @@ class AudioStream:
     language: str = ""  # as tagged in the file ("eng", "fre"); "" when untagged or "und"
     title: str = ""
     start_ms: int = 0  # where the stream starts on the player's clock (0 = with the container)
-    zero_s: float = 0.0  # the container's start in the stream's own timestamps: the player's zero
+    # The demuxer re-bases time on the streams in use (MPEG-TS/PS, FLV, HLS: ffmpeg's
+    # AVFMT_TS_DISCONT formats), so decoding must keep the video in use to keep the player's zero.
+    rebased: bool = False
 
     def label(self) -> str:
         """How notices name the stream: `1 (fre, "Music and effects")`."""
@@ -171,6 +177,8 @@ def probe(path: Path) -> MediaInfo:
 
 def describe(path: Path, text: str) -> MediaInfo:
     """MediaInfo from the text `ffmpeg -i` printed for `path`."""
+    demuxer = _DEMUXER.search(text)
+    rebased = demuxer is not None and bool(_REBASING & set(demuxer.group(1).split(",")))
     start_match = _START.search(text)
     start_s = float(start_match.group(1)) if start_match else 0.0
     audio: list[AudioStream] = []
@@ -201,7 +209,7 @@ def describe(path: Path, text: str) -> MediaInfo:
                 language,
                 title,
                 max(offset_ms, 0),
-                start_s,
+                rebased,
             )
         )
     duration = _DURATION.search(text)

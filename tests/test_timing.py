@@ -136,9 +136,10 @@ def test_a_stream_cut_keeps_the_edit_list_timing(tmp_path: Path) -> None:
 def test_probe_reports_the_stream_offset_and_container_start(tmp_path: Path) -> None:
     source = [*("-itsoffset", "1.5", "-i", str(_source(tmp_path)))]
     ts = _video(tmp_path, "big.ts", source, ["-c:a", "mp2", "-output_ts_offset", "30000"], "mpeg2video")
-    stream = media.probe(ts).choose_stream(None)
-    assert stream.zero_s > 29999  # the player's zero is the container start, not 0
-    assert stream.start_ms == pytest.approx(1500, abs=30)
+    info = media.probe(ts)
+    assert info.start_s > 29999  # the player's zero is the container start, not 0
+    stream = info.choose_stream(None)
+    assert stream.start_ms == pytest.approx(1500, abs=30) and stream.rebased
 
 
 def test_a_late_stream_is_captioned_on_the_players_clock(tmp_path: Path, pack: object) -> None:
@@ -154,3 +155,21 @@ def test_a_late_stream_is_captioned_on_the_players_clock(tmp_path: Path, pack: o
     # Cues start on a patch boundary (0.48 s hops of 0.96 s patches), so within one patch of the sound.
     assert abs(result.cues[0].start_ms / 1000 - reported) <= 0.96
     assert abs(our_onset_s(decoded(path)) - reported) <= TOLERANCE_S
+
+
+def test_a_ts_timestamp_jump_is_not_decoded_as_hours_of_silence(tmp_path: Path) -> None:
+    """Two TS recordings joined end to end (a splice): their clocks jump by 30000 s."""
+    source = [*("-i", str(_source(tmp_path)))]
+    first = _video(
+        tmp_path, "a.ts", source, ["-c:a", "mp2", "-output_ts_offset", "30000", "-t", "3"], "mpeg2video"
+    )
+    second = _video(
+        tmp_path, "b.ts", source, ["-c:a", "mp2", "-output_ts_offset", "60000", "-t", "3"], "mpeg2video"
+    )
+    joined = tmp_path / "joined.ts"
+    joined.write_bytes(first.read_bytes() + second.read_bytes())
+    samples = decoded(joined)
+    assert samples.size / RATE == pytest.approx(6.0, abs=0.2)
+    # The second burst plays 3 s after the first, as ffmpeg has it with every stream mapped.
+    second_burst = our_onset_s(samples[int(2.0 * RATE) :]) + 2.0
+    assert second_burst == pytest.approx(ffmpeg_onset_s(joined) + 3.0, abs=TOLERANCE_S)
