@@ -11,7 +11,7 @@ from pathlib import Path
 from .errors import MediaError
 from .events import Span
 from .languages import is_language_tag, same_language
-from .probing import MediaInfo, SubtitleStream, ffmpeg_executable, input_url, last_error_line
+from .probing import MediaInfo, SubtitleStream, clock_keeper, ffmpeg_executable, input_url, last_error_line
 
 DIALOGUE_EXTENSIONS = (".vtt", ".srt")
 
@@ -98,12 +98,20 @@ def embedded_dialogue(info: MediaInfo, stream: SubtitleStream) -> tuple[Span, ..
     """
     from .formats.subtitles import dialogue_spans, parse_subtitles
 
-    # As for audio: keep the stream's own timestamps and measure them from the container start.
+    # On ffmpeg's timeline, as the audio is (see media.py).
     result = subprocess.run(
         [
             ffmpeg_executable(),
-            *("-nostdin", "-v", "error", "-copyts", "-i", input_url(info.path)),
-            *("-map", f"0:s:{stream.index}", "-f", "srt", "pipe:"),
+            *(
+                "-nostdin",
+                "-v",
+                "error",
+                "-dn",
+                *(() if info.rebased else ("-vn",)),
+                "-i",
+                input_url(info.path),
+            ),
+            *("-map", f"0:s:{stream.index}", "-f", "srt", "pipe:", *clock_keeper(info.rebased)),
         ],
         capture_output=True,
     )
@@ -116,9 +124,4 @@ def embedded_dialogue(info: MediaInfo, stream: SubtitleStream) -> tuple[Span, ..
     track = parse_subtitles(
         result.stdout.decode("utf-8", "replace"), "srt", name=f"{info.path.name} subtitles"
     )
-    zero_ms = round(info.start_s * 1000)
-    shifted = (
-        Span(max(0, span.start_ms - zero_ms), max(0, span.end_ms - zero_ms))
-        for span in dialogue_spans(track.cues)
-    )
-    return tuple(span for span in shifted if span.end_ms > span.start_ms)
+    return tuple(span for span in dialogue_spans(track.cues) if span.end_ms > span.start_ms)

@@ -29,6 +29,7 @@ from .probing import (
     AudioStream,
     MediaInfo,
     SubtitleStream,
+    clock_keeper,
     ffmpeg_executable,
     input_url,
     last_error_line,
@@ -127,13 +128,12 @@ def _command(path: Path, stream: AudioStream, sample_rate: int) -> list[str]:
     # The input-side -vn/-sn/-dn keep the demuxer from handing over other streams (a saving
     # on a 2-core machine), except the video where the format re-bases time on it.
     skip = ("-sn", "-dn") if stream.rebased else ("-vn", "-sn", "-dn")
-    clock = ("-map", "0:v?", "-c", "copy", "-f", "null", "-") if stream.rebased else ()
     return [
         ffmpeg_executable(),
         *("-nostdin", "-v", "error", *skip, "-i", input_url(path)),
         *("-map", f"0:a:{stream.index}", "-af", ",".join(filters)),
         *("-f", "f32le", "-acodec", "pcm_f32le", "-ac", "2", "-ar", str(sample_rate), "pipe:"),
-        *clock,
+        *clock_keeper(stream.rebased),
     ]
 
 

@@ -81,6 +81,7 @@ class MediaInfo:
     audio_streams: tuple[AudioStream, ...]
     start_s: float = 0.0  # the container's start time in seconds (the player's zero)
     subtitle_streams: tuple[SubtitleStream, ...] = ()
+    rebased: bool = False  # see AudioStream.rebased
 
     def choose_stream(self, requested: int | str | None) -> AudioStream:
         """The requested audio stream, else the default one, else the first.
@@ -118,6 +119,12 @@ class MediaInfo:
             f"no audio stream matches --audio-stream {text!r} (streams: {listed})",
             "pass a stream number, a language or words of a title (see `captioner streams FILE`)",
         )
+
+
+def clock_keeper(rebased: bool) -> tuple[str, ...]:
+    """ffmpeg output options that keep the video in use, for formats that re-base time on the
+    streams in use: the video is copied to a null output (no decoding)."""
+    return ("-map", "0:v?", "-c", "copy", "-f", "null", "-") if rebased else ()
 
 
 def ffmpeg_executable() -> str:
@@ -217,7 +224,7 @@ def describe(path: Path, text: str) -> MediaInfo:
     if duration:
         hours, minutes, seconds = duration.groups()
         duration_ms = round((int(hours) * 3600 + int(minutes) * 60 + float(seconds)) * 1000)
-    return MediaInfo(path, duration_ms, tuple(audio), start_s, tuple(subtitles))
+    return MediaInfo(path, duration_ms, tuple(audio), start_s, tuple(subtitles), rebased)
 
 
 def _stream_title(following: list[str]) -> str:
