@@ -13,6 +13,7 @@ measures from the first stream in use, so the video is kept in use (copied to a 
 
 from __future__ import annotations
 
+import io
 import queue
 import subprocess
 import tempfile
@@ -156,15 +157,20 @@ def _check_damage(path: Path, message: str, decoded_ms: int, expected_ms: int | 
 
 def _pump(process: subprocess.Popen[bytes], chunk_bytes: int, chunks: queue.Queue[Fold | None]) -> None:
     """Move ffmpeg's output into the queue in whole-chunk blocks, folded to mono (runs in a
-    thread, so the queue holds mono chunks and the fold overlaps with classification)."""
-    assert process.stdout is not None
-    pending = bytearray()
-    while block := process.stdout.read(chunk_bytes - len(pending)):
-        pending += block
-        if len(pending) >= chunk_bytes:
-            chunks.put(fold(np.frombuffer(pending, dtype="<f4")))
-            pending.clear()
-    usable = len(pending) - len(pending) % 8  # whole (mid, side) pairs
+    thread, so the queue holds mono chunks and the fold overlaps with classification).
+
+    The pipe is read straight into one reused buffer: `fold` copies what it keeps.
+    """
+    assert isinstance(process.stdout, io.BufferedReader)
+    block = np.empty(chunk_bytes // 4, dtype="<f4")
+    view = block.data.cast("B")
+    filled = 0
+    while read := process.stdout.readinto(view[filled:]):
+        filled += read
+        if filled == chunk_bytes:
+            chunks.put(fold(block))
+            filled = 0
+    usable = filled - filled % 8  # whole (mid, side) pairs
     if usable:
-        chunks.put(fold(np.frombuffer(pending[:usable], dtype="<f4")))
+        chunks.put(fold(block[: usable // 4]))
     chunks.put(None)
