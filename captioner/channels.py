@@ -2,10 +2,11 @@
 
 ffmpeg's automatic mono mix of 5.1 (measured one channel at a time: fronts -3 dB, centre
 0 dB, surrounds -6 dB) leaves the LFE out, and a music bed carried by the surrounds in
-anti-phase (a common way to widen them) cancels to silence: such a bed was never captioned.
+anti-phase (as some upmixes and wide mixes have it) cancels to silence and is lost.
 Here the fold is our own `pan` filter with the same ITU-R BS.775 stereo downmix coefficients
 (centre and surrounds at -3 dB into left and right; from memory of the recommendation) plus
-the LFE at -6 dB (common practice), then left and right into mono at -3 dB each.
+the LFE, so that it reaches the mono mix at -6 dB (common practice), then left and right
+into mono at -3 dB each.
 
 ffmpeg emits two channels: mid = 0.707 (L + R), the mono mix, and side = 0.707 (L - R).
 Mid and side together carry the channels' power (P_mid + P_side = P_L + P_R), so a mid far
