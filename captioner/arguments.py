@@ -32,7 +32,8 @@ def build_parser() -> argparse.ArgumentParser:
             "examples:\n"
             "  captioner caption demo.mp4                      # writes demo.sounds.vtt beside it\n"
             "  captioner caption demo.mp4 -o - --explain       # print cues and the decisions\n"
-            "  captioner caption show.mkv --audio-stream 1 --format srt --dialogue show.en.srt"
+            "  captioner caption show.mkv --audio-stream 1 --format srt --dialogue show.en.srt\n"
+            "  captioner caption dual.mkv --audio-stream 'music effects'   # by words of the stream's title"
         ),
     )
     caption.add_argument("input", type=Path, help="video or audio file (anything ffmpeg reads)")
@@ -70,13 +71,7 @@ def build_parser() -> argparse.ArgumentParser:
     caption.add_argument(
         "--model", default=None, help="model pack name or manifest path (default: yamnet-int8)"
     )
-    caption.add_argument(
-        "--audio-stream",
-        type=int,
-        default=None,
-        metavar="N",
-        help="which audio stream to use, 0 = first (default: the default stream)",
-    )
+    _stream_options(caption)
     caption.add_argument(
         "--explain",
         action="store_true",
@@ -279,6 +274,7 @@ def build_parser() -> argparse.ArgumentParser:
         help="send the work to this Dask scheduler instead (needs captioner[cluster])",
     )
     batch.add_argument("--style", default="brackets", help="style preset name or a style .yaml file")
+    _stream_options(batch)
     batch.add_argument(
         "--format", choices=("vtt", "srt"), default="vtt", help="caption format (default: vtt)"
     )
@@ -324,6 +320,20 @@ def build_parser() -> argparse.ArgumentParser:
         "-o", "--output", type=Path, required=True, help="the clean copy, same format as TRACK"
     )
     deliver.add_argument("--force", action="store_true", help="replace an existing output file")
+
+    streams = commands.add_parser(
+        "streams",
+        help="list a media file's audio streams (and its text subtitle streams) "
+        "to choose one with --audio-stream",
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+        epilog=(
+            "examples:\n"
+            "  captioner streams dual.mkv\n"
+            "  captioner caption dual.mkv --audio-stream fre            # by language\n"
+            "  captioner caption dual.mkv --audio-stream 'music and effects'"
+        ),
+    )
+    streams.add_argument("input", type=Path, help="video or audio file (anything ffmpeg reads)")
 
     styles = commands.add_parser(
         "styles",
@@ -408,3 +418,22 @@ def build_parser() -> argparse.ArgumentParser:
     )
     evaluate.add_argument("--force", action="store_true", help="replace an existing --json file")
     return parser
+
+
+def _stream_options(command: argparse.ArgumentParser) -> None:
+    """--audio-stream and --dialogue-language, shared by `caption` and `batch`."""
+    command.add_argument(
+        "--audio-stream",
+        default=None,
+        metavar="N|LANG|WORDS",
+        help="which audio stream to caption: its number (0 = first), its language (en, eng, fre), "
+        "or words of "
+        "its title (see `captioner streams FILE`; default: the file's default stream)",
+    )
+    command.add_argument(
+        "--dialogue-language",
+        default=None,
+        metavar="LANG",
+        help="language of the dialogue subtitles to use when several sit beside a video (NAME.en.srt, "
+        "NAME.fr.vtt) or are embedded in it (default: untagged or default ones first)",
+    )

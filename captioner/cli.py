@@ -105,6 +105,7 @@ def _caption(args: argparse.Namespace) -> int:
             style,
             audio_stream=args.audio_stream,
             dialogue=dialogue,
+            dialogue_language=args.dialogue_language,
             dialogue_source=args.dialogue.name if args.dialogue else "classifier",
             on_start=bar.start,
             on_progress=bar.advance,
@@ -136,6 +137,8 @@ def _caption(args: argparse.Namespace) -> int:
             print(merge_table(merged), file=sys.stderr)
     if merged is not None:
         _merge_warnings(merged)
+    if result.empty_stream_notice():
+        say(result.empty_stream_notice())
     if output is not None and not updating:
         say(
             f"{len(result.cues)} cue(s) written to {output}"
@@ -246,6 +249,12 @@ def _output_target(args: argparse.Namespace) -> tuple[str, Path | None]:
     if args.output:
         output = Path(args.output)
         suffix = output.suffix.lower().lstrip(".")
+        if args.format and suffix in ("vtt", "srt") and suffix != args.format:
+            raise OutputError(
+                output,
+                f"is named .{suffix} but --format {args.format} was asked for",
+                f"name the file .{args.format}, or leave out --format to follow the extension",
+            )
         return args.format or (suffix if suffix in ("vtt", "srt") else "vtt"), output
     fmt = args.format or "vtt"
     from .formats import sound_track_path
@@ -271,6 +280,8 @@ def _batch(args: argparse.Namespace) -> int:
         workers=args.workers or os.cpu_count() or 1,
         cluster=args.cluster,
         retry_failed=args.retry_failed,
+        audio_stream=args.audio_stream,
+        dialogue_language=args.dialogue_language,
     )
     say = _notices(args.quiet)
     summary = library.run_batch(
@@ -492,6 +503,14 @@ def _deliver(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def _streams(args: argparse.Namespace) -> int:
+    from .probing import probe
+    from .report import streams_table
+
+    print(streams_table(probe(args.input)))
+    return EXIT_OK
+
+
 def _styles(args: argparse.Namespace) -> int:
     from .errors import StyleError
     from .style import builtin_styles, load_style
@@ -520,6 +539,7 @@ _RUNNERS: dict[str, Callable[[argparse.Namespace], int]] = {
     "teach": _teach,
     "check": _check,
     "deliver": _deliver,
+    "streams": _streams,
 }
 
 

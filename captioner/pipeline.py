@@ -13,6 +13,7 @@ from . import __version__, media, update
 from .captioned import Captioned as Captioned  # re-exported: pipeline.Captioned
 from .cues import Cue, build_cues
 from .dialogue import speech_spans
+from .dialogue_sources import embedded_dialogue, embedded_stream
 from .errors import StyleError
 from .events import SoundEvent, Span, detect_events
 from .formats import WRITERS, sidecar
@@ -67,16 +68,18 @@ def caption_file(
     pack: LoadedPack,
     style: Style,
     *,
-    audio_stream: int | None = None,
+    audio_stream: int | str | None = None,
     dialogue: tuple[Span, ...] | None = None,
     dialogue_source: str = "classifier",
+    dialogue_language: str | None = None,
     on_start: Callable[[int | None], None] | None = None,
     on_progress: Callable[[int], None] | None = None,
 ) -> Captioned:
     """Decode, classify and caption one file.
 
     `on_start` receives the duration in ms (None when unknown) before decoding begins;
-    `on_progress` receives ms of audio processed after each chunk.
+    `on_progress` receives ms of audio processed after each chunk. Without `dialogue`, a
+    text subtitle stream inside the file (of `dialogue_language` when given) marks dialogue.
 
     Raises:
         MediaError: the file cannot be probed or decoded.
@@ -84,6 +87,11 @@ def caption_file(
     check_style_fits_pack(style, pack)
     info = media.probe(path)
     stream = info.choose_stream(audio_stream)
+    if dialogue is None and (embedded := embedded_stream(info, dialogue_language)) is not None:
+        dialogue = embedded_dialogue(info, embedded)
+        dialogue_source = f"{path.name} subtitle stream {embedded.index}" + (
+            f" ({embedded.language})" if embedded.language else ""
+        )
     if on_start:
         on_start(info.duration_ms)
     rate = pack.manifest.frontend.sample_rate
@@ -102,7 +110,19 @@ def caption_file(
             on_progress=progress,
         )
     spans, events, decisions, cues = caption_track(track, pack.vocabulary, style, dialogue=dialogue)
-    return Captioned(path, style, pack.manifest.name, track, spans, dialogue_source, events, decisions, cues)
+    return Captioned(
+        path,
+        style,
+        pack.manifest.name,
+        track,
+        spans,
+        dialogue_source,
+        events,
+        decisions,
+        cues,
+        stream,
+        info.audio_streams,
+    )
 
 
 @dataclass(frozen=True, slots=True)
@@ -146,6 +166,8 @@ def draft_outputs(
         f"Sound captions drafted by captioner {__version__} from {result.source.name}\n"
         f"style {result.style.name}, model pack {result.pack_name}; review before publishing"
     )
+    if result.stream_line():
+        note += "\n" + result.stream_line()
     merged, merged_text = None, None
     if merge_with is not None:
         priorities = {e.event_id: e.priority for e in result.events}

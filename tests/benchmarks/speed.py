@@ -5,6 +5,7 @@ then runs each measurement in a fresh process so peak memory is that run's own.
 
     python tests/benchmarks/speed.py            # 10 and 60 minutes
     python tests/benchmarks/speed.py --minutes 1 5
+    python tests/benchmarks/speed.py --stages decode end_to_end
 
 Prints a Markdown table for the README.
 """
@@ -30,6 +31,8 @@ from captioner import media, packs, pipeline
 from captioner.features import PatchStream
 from captioner.scores import compute_scores
 from captioner.style import load_style
+
+STAGES = ("decode", "features", "classify", "end_to_end")
 
 
 def make_input(path: Path, minutes: int) -> Path:
@@ -134,6 +137,13 @@ def main() -> None:
     )
     parser.add_argument("--minutes", type=int, nargs="+", default=[10, 60])
     parser.add_argument("--workdir", type=Path, default=Path(tempfile.gettempdir()) / "captioner-bench")
+    parser.add_argument(
+        "--stages",
+        nargs="+",
+        choices=STAGES,
+        default=list(STAGES),
+        help="which rows to measure (default: all)",
+    )
     parser.add_argument("--stage", help=argparse.SUPPRESS)
     parser.add_argument("--input", type=Path, help=argparse.SUPPRESS)
     args = parser.parse_args()
@@ -146,7 +156,7 @@ def main() -> None:
     print("|---|---|---|---|---|---|")
     for minutes in args.minutes:
         path = make_input(args.workdir / f"bench-{minutes}min.mp4", minutes)
-        for stage in ("decode", "features", "classify", "end_to_end_no_heads", "end_to_end"):
+        for stage in args.stages:
             out = subprocess.run(
                 [sys.executable, __file__, "--stage", stage, "--input", str(path)],
                 capture_output=True,
