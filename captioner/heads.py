@@ -4,10 +4,12 @@ The classifier's own labels were not made for captions; a head per concept, trai
 labelled recordings, reads the network's embedding instead. A head file (.npz, no pickles)
 holds for each concept a linear layer and a calibration of its raw output:
 
-    score = clip(-log10(share of held-out negative patches scoring as high) / DECADES, 0, 1)
+    decades = -log10(share of held-out negative patches scoring as high)
+    score = clip((decades - FLOOR_DECADES) / (DECADES - FLOOR_DECADES), 0, 1)
 
-so a score means the same thing for every concept: 0.6 = one negative patch in a thousand
-scores this high, 0.8 = one in ten thousand. Heads may also name new concepts with their own
+so a score means the same thing for every concept: 0 = as common as the commonest 3 % of
+negative patches, 0.43 = one negative patch in a thousand scores this high, 0.71 = one in ten
+thousand. Like a classifier's probabilities, most patches that hold none of the sound score 0. Heads may also name new concepts with their own
 wording (a user's own sounds); built-in heads refine concepts of the vocabulary.
 """
 
@@ -26,6 +28,9 @@ from .errors import PackError
 from .vocabulary import ClassEntry, Kind, Vocabulary
 
 DECADES = 5.0  # score 1.0 = one negative in 10**DECADES
+# Below this many decades a score is 0: the other sounds and pauses of a soundtrack score
+# there, and hysteresis thresholds near 0.1-0.3 must not keep an event alive on them.
+FLOOR_DECADES = 1.5
 _KNOT_DECADES = np.linspace(0.0, DECADES, 11)  # calibration knots every half decade
 FORMAT = "captioner-heads-1"
 
@@ -103,7 +108,8 @@ def calibration_knots(negative_logits: np.ndarray) -> np.ndarray:
 
 
 def knot_scores() -> np.ndarray:
-    return (_KNOT_DECADES / DECADES).astype(np.float32)
+    """Calibrated score at each knot (see the module docstring)."""
+    return np.clip((_KNOT_DECADES - FLOOR_DECADES) / (DECADES - FLOOR_DECADES), 0, 1).astype(np.float32)
 
 
 def save_heads(path: Path, heads: HeadSet) -> None:

@@ -13,6 +13,8 @@ from captioner.events import concept_curves
 from captioner.features import Frontend
 from captioner.fitting import NEGATIVE, POSITIVE, TrainingSet, fit_logistic, train_heads
 from captioner.heads import (
+    DECADES,
+    FLOOR_DECADES,
     HeadSet,
     NewConcept,
     calibrate,
@@ -100,17 +102,22 @@ def test_calibration_reads_as_the_negatives_false_positive_rate() -> None:
     negatives = rng.normal(size=200_000)
     knots = calibration_knots(negatives)
     assert np.all(np.diff(knots) > 0)
-    # Score 0.4 = 2 decades = 1 % of negatives above it; 0.6 = 0.1 %. Checked against the
-    # normal distribution's survival function (scipy), not against our own quantiles.
+    # 1 % of negatives above = 2 decades, 0.1 % = 3 decades, mapped by the module's formula.
+    # The shares are checked against the normal distribution's survival function (scipy),
+    # not against our own quantiles.
     from scipy.stats import norm
 
-    for score, share in ((0.4, 1e-2), (0.6, 1e-3)):
-        z = float(norm.isf(share))
+    def expected(decades: float) -> float:
+        return (decades - FLOOR_DECADES) / (DECADES - FLOOR_DECADES)
+
+    for decades in (2.0, 3.0):
+        z = float(norm.isf(10.0**-decades))
         value = calibrate(np.array([[z]], np.float32), knots[None, :], knot_scores())[0, 0]
-        assert value == pytest.approx(score, abs=0.02)
+        assert value == pytest.approx(expected(decades), abs=0.02)
     fresh = rng.normal(size=200_000).astype(np.float32)
     scored = calibrate(fresh[:, None], knots[None, :], knot_scores())[:, 0]
-    assert np.mean(scored >= 0.6) == pytest.approx(1e-3, rel=0.35)
+    assert np.mean(scored >= expected(3.0)) == pytest.approx(1e-3, rel=0.35)
+    assert np.mean(scored == 0.0) == pytest.approx(1 - 10**-FLOOR_DECADES, abs=0.01)
 
 
 def _track(head_scores: np.ndarray, concepts: tuple[str, ...], n_classes: int = 521) -> ScoreTrack:
