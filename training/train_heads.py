@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import argparse
 import csv
+import dataclasses
 import hashlib
 import json
 import re
@@ -30,7 +31,8 @@ sys.path.insert(0, str(ROOT))
 
 from captioner import packs  # noqa: E402
 from captioner.fitting import IGNORED, NEGATIVE, POSITIVE, TrainingSet, report_table, train_heads  # noqa: E402
-from captioner.heads import save_heads  # noqa: E402
+from captioner.heads import HeadSet, save_heads  # noqa: E402
+from captioner.separability import average_precision  # noqa: E402
 from captioner.teach import NEGATIVE_POOL, QUIET_DB, embed, save_negative_pool  # noqa: E402
 
 RATE = 16000
@@ -146,6 +148,18 @@ def concept_relations(
     return relations
 
 
+def subset(heads: HeadSet, keep: list[int], kept_ap: dict[str, float | None]) -> HeadSet:
+    """The heads at `keep`, with the choice recorded in the file's info."""
+    return dataclasses.replace(
+        heads,
+        concepts=tuple(heads.concepts[j] for j in keep),
+        weights=heads.weights[keep],
+        bias=heads.bias[keep],
+        knots=heads.knots[keep],
+        info={**heads.info, "shipped": kept_ap},
+    )
+
+
 def main() -> int:
     parser = argparse.ArgumentParser(
         description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter
@@ -156,6 +170,13 @@ def main() -> int:
         "--cache", type=Path, default=None, help="embedding cache (default: WORK/embeddings.npz)"
     )
     parser.add_argument("--l2", type=float, default=1e-3)
+    parser.add_argument("--folds", type=int, default=5, help="cross-validation folds (default 5)")
+    parser.add_argument(
+        "--margin",
+        type=float,
+        default=0.05,
+        help="AP a head must gain over the classes to ship (default 0.05)",
+    )
     parser.add_argument(
         "--embedding-only",
         action="store_true",
@@ -259,8 +280,27 @@ def main() -> int:
         "negatives": len(negatives),
         "clips_per_head": {h: sum(counts.get(c, 0) for c in relations[h][0]) for h in heads},
     }
-    headset, reports = train_heads(data, l2=args.l2, info=info, say=print)
+    headset, reports = train_heads(data, l2=args.l2, folds=args.folds, info=info, say=print)
     print(report_table(reports))
+    # A head ships only where it separates its concept better than the classifier's own
+    # classes do on the same held-out patches; elsewhere the classes stay.
+    keep = []
+    for j, report in enumerate(reports):
+        used = labels[:, j] >= 0
+        columns = [e.index for e in pack.vocabulary.concepts()[report.concept] if e.index >= 0]
+        class_ap = (
+            average_precision(class_scores[used][:, columns].max(axis=1), labels[used, j] == POSITIVE)
+            if columns
+            else 0.0
+        )
+        wins = report.average_precision is not None and report.average_precision > class_ap + args.margin
+        print(
+            f"  {report.concept:<14} head AP {report.average_precision or 0:.3f}  classes AP {class_ap:.3f}"
+            f"  -> {'head' if wins else 'classes'}"
+        )
+        if wins:
+            keep.append(j)
+    headset = subset(headset, keep, {reports[j].concept: reports[j].average_precision for j in keep})
     target = ROOT / "captioner" / "data" / "yamnet_heads.npz"
     save_heads(target, headset)
     pool = features[np.char.startswith(concept_arr, "_negative:")]
