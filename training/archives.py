@@ -30,6 +30,7 @@ AUDIO_SUFFIXES = (
 )
 ZIP_SUFFIXES = (".zip", ".pk3", ".pk4", ".wz")
 RCC_SUFFIXES = (".rcc",)
+C4GROUP_SUFFIXES = (".ocg", ".ocd", ".ocf", ".ocs", ".c4g", ".c4d")
 
 
 @dataclass(frozen=True)
@@ -57,6 +58,8 @@ def package_sounds(root: Path) -> Iterator[SoundFile]:
             yield from _rcc_members(file.read_bytes(), rel)
         elif lower.endswith(".cat"):
             yield from _cat_members(file.read_bytes(), rel)
+        elif lower.endswith(C4GROUP_SUFFIXES):
+            yield from _c4group_members(file.read_bytes(), rel)
 
 
 def _zip_members(file: Path, rel: str) -> Iterator[SoundFile]:
@@ -140,3 +143,42 @@ def _cat_members(blob: bytes, rel: str) -> Iterator[SoundFile]:
 
 def _constant(payload: bytes) -> Callable[[], bytes]:
     return lambda: payload
+
+
+# OpenClonk groups (.ocg/.ocd/...): a gzip stream whose first two magic bytes are changed
+# (1E 8C), holding a 204-byte header and 316-byte entries, both scrambled (XOR 237, then every
+# three bytes reversed); sub-groups are stored inside uncompressed, in the same layout.
+_C4_HEADER, _C4_ENTRY = 204, 316
+
+
+def _c4group_members(blob: bytes, rel: str) -> Iterator[SoundFile]:
+    if blob[:2] == b"\x1e\x8c":
+        try:
+            blob = zlib.decompressobj(31).decompress(b"\x1f\x8b" + blob[2:])
+        except zlib.error:
+            return
+    yield from _c4group_walk(blob, rel)
+
+
+def _c4_unscramble(data: bytes) -> bytes:
+    out = bytearray(byte ^ 237 for byte in data)
+    for i in range(0, len(out) - 2, 3):
+        out[i], out[i + 2] = out[i + 2], out[i]
+    return bytes(out)
+
+
+def _c4group_walk(blob: bytes, rel: str) -> Iterator[SoundFile]:
+    header = _c4_unscramble(blob[:_C4_HEADER])
+    if not header.startswith(b"RedWolf Design GrpFolder"):
+        return
+    entries = struct.unpack("<i", header[36:40])[0]
+    base = _C4_HEADER + entries * _C4_ENTRY
+    for n in range(entries):
+        entry = blob[_C4_HEADER + n * _C4_ENTRY : _C4_HEADER + (n + 1) * _C4_ENTRY]
+        name = entry[:260].split(b"\0")[0].decode("latin-1")
+        _, child, size, _, offset = struct.unpack("<iiiii", entry[260:280])
+        payload = blob[base + offset : base + offset + size]
+        if child:
+            yield from _c4group_walk(payload, f"{rel}/{name}")
+        elif is_audio(name):
+            yield SoundFile(f"{rel}/{name}", _constant(payload))

@@ -103,9 +103,15 @@ def _labelled(package: str, root: Path, recipe: Recipe) -> Iterator[tuple[str, b
 def process_package(package: str, deb: str, work: str) -> list[dict[str, str]]:
     """Decode every labelled file of one package; returns its clip rows (cached per package)."""
     recipe = load_recipe()
+    own_rules = [(r.match, r.label, r.negative) for r in recipe.rules if r.package == package]
+    key = hashlib.sha256(
+        json.dumps([Path(deb).name, MIN_SECONDS, SILENT_PEAK, own_rules]).encode()
+    ).hexdigest()
     state = Path(work) / "state" / f"{package}.json"
     if state.exists():
-        return list(json.loads(state.read_text()))
+        cached = json.loads(state.read_text())
+        if isinstance(cached, dict) and cached.get("key") == key:
+            return list(cached["rows"])
     root = unpack(Path(deb), Path(work) / "pkgs" / package)
     info = recipe.package(package)
     copyright_file = root / "usr/share/doc" / package / "copyright"
@@ -145,7 +151,7 @@ def process_package(package: str, deb: str, work: str) -> list[dict[str, str]]:
         }
         rows.append(row)
     state.parent.mkdir(parents=True, exist_ok=True)
-    state.write_text(json.dumps(rows))
+    state.write_text(json.dumps({"key": key, "rows": rows}))
     return rows
 
 

@@ -9,12 +9,12 @@ from concurrent.futures import ProcessPoolExecutor
 from pathlib import Path
 
 from training.archives import package_sounds
-from training.audio import DecodeError, decode_bytes, decode_file, pcm_sha256, read_wav
+from training.audio import MAX_SECONDS, DecodeError, decode_bytes, decode_file, pcm_sha256, read_wav
 from training.leakage import Fingerprint, FingerprintIndex, checksum_matches, fingerprint
 from training.recipe import Recipe
 
 CHUNKS_PER_PACKAGE = 8
-REFERENCE_MAX_SECONDS = 600.0  # decode whole excluded files (long music too) for the audio checksum
+REFERENCE_MAX_SECONDS = MAX_SECONDS  # the same cut as the training clips, so that audio checksums compare
 
 
 def progress(message: str) -> None:

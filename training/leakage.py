@@ -146,7 +146,9 @@ class FingerprintIndex:
             sorted_keys = keys[loud][order]
             self._tables.append((shift, sorted_keys, owner[loud][order], position[loud][order], common_limit))
 
-    def matches(self, query: Fingerprint, min_votes: int = 3) -> list[tuple[str, Alignment]]:
+    def matches(
+        self, query: Fingerprint, min_votes: int = 3, max_candidates: int = 300
+    ) -> list[tuple[str, Alignment]]:
         """Excluded clips that the query matches, with the best alignment for each."""
         loud_at = np.flatnonzero(query.loud)
         pairs = []
@@ -165,9 +167,11 @@ class FingerprintIndex:
             return []
         unique, counts = np.unique(np.concatenate(pairs), return_counts=True)
         needed = min(min_votes, max(1, len(loud_at) // 8))
-        candidates = [
-            (int(k) >> 24, (int(k) & ((1 << 24) - 1)) - (1 << 23)) for k in unique[counts >= needed]
-        ]
+        strong = np.flatnonzero(counts >= needed)
+        strong = strong[np.argsort(-counts[strong], kind="stable")][
+            :max_candidates
+        ]  # steady tones vote everywhere
+        candidates = [(int(k) >> 24, (int(k) & ((1 << 24) - 1)) - (1 << 23)) for k in unique[strong]]
         best: dict[int, Alignment] = {}
         for clip, offset in candidates:
             for shifted in (offset - 1, offset, offset + 1):
