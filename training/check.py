@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import hashlib
+import multiprocessing
 import pickle
 import sys
 from concurrent.futures import ProcessPoolExecutor
@@ -70,6 +71,19 @@ def clip_print(wav: str, cache: str) -> Fingerprint:
     return fp
 
 
+_INDEX: FingerprintIndex | None = None
+
+
+def _acoustic_match(query: Fingerprint) -> tuple[str, str, str] | None:
+    assert _INDEX is not None
+    found = _INDEX.matches(query)
+    if not found:
+        return None
+    name, how = found[0]
+    detail = f"bit error rate {how.ber:.3f} (best window {how.window_ber:.3f}) over {how.items} items"
+    return name, "chromaprint", detail + (f"; {len(found)} matches" if len(found) > 1 else "")
+
+
 def run_leakage_check(
     rows: list[dict[str, str]], recipe: Recipe, work: Path, dev: list[Path], jobs: int, with_prints: bool
 ) -> tuple[list[dict[str, str]], list[dict[str, str]]]:
@@ -115,22 +129,23 @@ def run_leakage_check(
                 prints[cid] = printed.result()
                 if n % 500 == 0:
                     progress(f"fingerprinted {n}/{len(rows)} clips")
+    acoustic: dict[str, tuple[str, str, str]] = {}
+    if index is not None:
+        global _INDEX
+        _INDEX = index
+        ids = [r["clip_id"] for r in rows]
+        # forked workers share the index built here (copy on write)
+        with ProcessPoolExecutor(jobs, mp_context=multiprocessing.get_context("fork")) as pool:
+            verdicts = pool.map(_acoustic_match, [prints[i] for i in ids], chunksize=20)
+            for n, (cid, verdict) in enumerate(zip(ids, verdicts), 1):
+                if verdict is not None:
+                    acoustic[cid] = verdict
+                if n % 250 == 0:
+                    progress(f"compared {n}/{len(rows)} clips by fingerprint, {len(acoustic)} matched")
     kept, dropped = [], []
     for n, row in enumerate(rows, 1):
         match = checksum_matches(row["sha256"], row["audio_sha256"], file_index, audio_index)
-        verdict = (match[1], match[0], "") if match else None
-        if verdict is None and index is not None:
-            found = index.matches(prints[row["clip_id"]])
-            if found:
-                name, how = found[0]
-                detail = (
-                    f"bit error rate {how.ber:.3f} (best window {how.window_ber:.3f}) over {how.items} items"
-                )
-                verdict = (
-                    name,
-                    "chromaprint",
-                    detail + (f"; {len(found)} matches" if len(found) > 1 else ""),
-                )
+        verdict = (match[1], match[0], "") if match else acoustic.get(row["clip_id"])
         if verdict is None:
             kept.append(row)
         else:

@@ -40,6 +40,8 @@ MAX_FP_SECONDS = 60.0  # real seconds fingerprinted per file (long music: its fi
 MATCH_BER = 0.20  # overlap of the whole shorter fingerprint
 WINDOW_ITEMS = 48  # ... or any window of this many non-silent items (about 0.75 s of audio)
 WINDOW_BER = 0.18
+CONTRAST_SHIFTS = (-16, -12, -8, 8, 12, 16)  # items (a quarter second at most)
+CONTRAST = 0.6  # the match must have at most this share of the bit errors of those shifts
 MIN_ITEMS = 16  # overlaps with fewer loud items (about a quarter second) are not judged
 
 
@@ -122,6 +124,19 @@ def is_match(found: Alignment | None) -> bool:
     return found is not None and (found.ber <= MATCH_BER or found.window_ber <= WINDOW_BER)
 
 
+def stands_out(query: Fingerprint, other: Fingerprint, offset: int, found: Alignment) -> bool:
+    """A real alignment beats its neighbours: shifted by a few items, a copy no longer agrees.
+
+    Steady tones and slow drones give nearly the same items everywhere, so two different
+    beeps of one pitch class agree at every offset; they are no evidence of a copy.
+    """
+    around = [align(query, other, offset + d) for d in CONTRAST_SHIFTS]
+    baseline = [min(a.ber, a.window_ber) for a in around if a is not None]
+    if not baseline:
+        return False
+    return min(found.ber, found.window_ber) <= CONTRAST * float(np.median(baseline))
+
+
 class FingerprintIndex:
     """Every excluded fingerprint, searchable by 16-bit halves of their items.
 
@@ -176,7 +191,11 @@ class FingerprintIndex:
         for clip, offset in candidates:
             for shifted in (offset - 1, offset, offset + 1):
                 found = align(query, self.prints[clip], shifted)
-                if is_match(found) and found is not None:
+                if (
+                    found is not None
+                    and is_match(found)
+                    and stands_out(query, self.prints[clip], shifted, found)
+                ):
                     if clip not in best or found.ber < best[clip].ber:
                         best[clip] = found
         return [(self.names[clip], found) for clip, found in sorted(best.items(), key=lambda kv: kv[1].ber)]
