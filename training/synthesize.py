@@ -62,25 +62,32 @@ def _cadence(pattern: list[float], total: float, start: float = 0.0) -> list[tup
     return [(a, min(b, total)) for a, b in spans if a < total]
 
 
+def _two_tone_ring(
+    rng: np.random.Generator,
+    tones: tuple[float, float],
+    pattern: list[float],
+    durations: tuple[float, float, float],
+) -> tuple[np.ndarray, str]:
+    """Two summed tones switched by a ring cadence; durations = shortest clip, earliest, latest start."""
+    shortest, earliest, latest = durations
+    total = rng.uniform(shortest, 8)
+    t = _t(total)
+    gate = _gate(t, _cadence(pattern, total, rng.uniform(earliest, latest)), 0.01)
+    shift = rng.uniform(0.98, 1.02)
+    tone = np.sin(2 * np.pi * tones[0] * shift * t) + np.sin(2 * np.pi * tones[1] * shift * t)
+    cadence = "2 s on 4 s off" if pattern == [2.0, 4.0] else "/".join(f"{x:.1f}" for x in pattern) + " s"
+    return tone * gate, f"{tones[0]:.0f}+{tones[1]:.0f} Hz x{shift:.3f}, {cadence}, {total:.1f} s"
+
+
 def telephone_na(rng: np.random.Generator) -> tuple[np.ndarray, str]:
     # North American ringing: 2 s on, 4 s off (from memory; the 440+480 Hz pair is the
     # ringback tone of the same cadence, ANSI T1.401).
-    total = rng.uniform(4, 8)
-    t = _t(total)
-    gate = _gate(t, _cadence([2.0, 4.0], total, rng.uniform(0.05, 0.5)), 0.01)
-    shift = rng.uniform(0.98, 1.02)
-    tone = np.sin(2 * np.pi * 440 * shift * t) + np.sin(2 * np.pi * 480 * shift * t)
-    return tone * gate, f"440+480 Hz x{shift:.3f}, 2 s on 4 s off, {total:.1f} s"
+    return _two_tone_ring(rng, (440, 480), [2.0, 4.0], (4, 0.05, 0.5))
 
 
 def telephone_uk(rng: np.random.Generator) -> tuple[np.ndarray, str]:
     # UK double ring: 0.4 s on, 0.2 s off, 0.4 s on, 2 s off, 400+450 Hz (from memory).
-    total = rng.uniform(3, 8)
-    t = _t(total)
-    gate = _gate(t, _cadence([0.4, 0.2, 0.4, 2.0], total, rng.uniform(0, 0.5)), 0.01)
-    shift = rng.uniform(0.98, 1.02)
-    tone = np.sin(2 * np.pi * 400 * shift * t) + np.sin(2 * np.pi * 450 * shift * t)
-    return tone * gate, f"400+450 Hz x{shift:.3f}, 0.4/0.2/0.4/2.0 s, {total:.1f} s"
+    return _two_tone_ring(rng, (400, 450), [0.4, 0.2, 0.4, 2.0], (3, 0.0, 0.5))
 
 
 def telephone_trill(rng: np.random.Generator) -> tuple[np.ndarray, str]:
