@@ -103,17 +103,16 @@ def _labelled(package: str, root: Path, recipe: Recipe) -> Iterator[tuple[str, b
 def process_package(package: str, deb: str, work: str) -> list[dict[str, str]]:
     """Decode every labelled file of one package; returns its clip rows (cached per package)."""
     recipe = load_recipe()
+    info = recipe.package(package)
     own_rules = [(r.match, r.label, r.negative) for r in recipe.rules if r.package == package]
-    key = hashlib.sha256(
-        json.dumps([Path(deb).name, MIN_SECONDS, SILENT_PEAK, own_rules]).encode()
-    ).hexdigest()
+    recipe_part = [Path(deb).name, MIN_SECONDS, SILENT_PEAK, own_rules, info.licence]
+    key = hashlib.sha256(json.dumps(recipe_part).encode()).hexdigest()  # a changed recipe redoes the package
     state = Path(work) / "state" / f"{package}.json"
     if state.exists():
         cached = json.loads(state.read_text())
         if isinstance(cached, dict) and cached.get("key") == key:
             return list(cached["rows"])
     root = unpack(Path(deb), Path(work) / "pkgs" / package)
-    info = recipe.package(package)
     copyright_file = root / "usr/share/doc" / package / "copyright"
     stanzas = copyright_stanzas(copyright_file.read_text(errors="replace")) if copyright_file.exists() else []
     version = subprocess.run(
