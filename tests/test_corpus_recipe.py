@@ -1,0 +1,110 @@
+"""The corpus recipe: labels only from allowed packages, onto concepts the vocabulary has."""
+
+from __future__ import annotations
+
+import io
+import struct
+import zipfile
+import zlib
+from pathlib import Path
+
+import yaml
+
+from training.archives import package_sounds
+from training.recipe import copyright_stanzas, licence_of, load_recipe
+
+VOCABULARY = Path(__file__).resolve().parent.parent / "captioner" / "data" / "yamnet_vocabulary.yaml"
+
+# Paths shaped like the sound files of the evaluation packages (every rule pattern is tried on
+# each of them under each excluded package name).
+TYPICAL_PATHS = [
+    "usr/share/games/x/data/sounds/dog.ogg",
+    "usr/share/games/x/sound/explosion.wav",
+    "usr/share/games/x/mods/public/public.zip/audio/actor/fauna/animal/horse_idle1.ogg",
+    "usr/share/games/x/base/0snd.pk3/sound/weapons/bullet-rifle.ogg",
+    "usr/share/sounds/x/stereo/phone-incoming-call.oga",
+]
+
+
+def test_every_rule_labels_a_concept_of_the_vocabulary() -> None:
+    concepts = set(yaml.safe_load(VOCABULARY.read_text(encoding="utf-8")))
+    recipe = load_recipe()
+    unknown = {rule.label for rule in recipe.rules if not rule.negative} - concepts
+    assert unknown == set()
+    assert all(rule.package in {p.name for p in recipe.packages} for rule in recipe.rules)
+
+
+def test_no_rule_selects_a_file_of_an_excluded_package() -> None:
+    recipe = load_recipe()
+    assert len(recipe.excluded) == 19
+    assert not {p.name for p in recipe.packages} & set(recipe.excluded)
+    assert not {rule.package for rule in recipe.rules} & set(recipe.excluded)
+    for package in recipe.excluded:
+        for path in TYPICAL_PATHS:
+            assert recipe.rule_for(package, path) is None
+
+
+def test_rules_are_checked_in_order_and_ignore_case() -> None:
+    recipe = load_recipe()
+    rule = recipe.rule_for("freeciv-data", "usr/share/games/freeciv/stdsounds/LRGEXPL.ogg")
+    assert rule is not None and rule.label == "explosion"
+    assert recipe.rule_for("freeciv-data", "usr/share/games/freeciv/stdsounds/illegal.ogg") is None
+
+
+def test_licence_comes_from_the_last_matching_stanza() -> None:
+    # Debian machine-readable copyright format 1.0: the last matching Files stanza applies.
+    text = "Format: x\n\nFiles: *\nLicense: GPL-3+\n\nFiles: src/core/resource/sounds/win.wav\nLicense: CC-BY-3.0\n"
+    stanzas = copyright_stanzas(text)
+    assert (
+        licence_of("usr/share/g/rcc/core.rcc/g/src/core/resource/sounds/win.wav", stanzas, "?") == "CC-BY-3.0"
+    )
+    assert (
+        licence_of("usr/share/g/rcc/core.rcc/g/src/core/resource/sounds/flip.wav", stanzas, "?") == "GPL-3+"
+    )
+    assert licence_of("a/b.wav", [], "fallback") == "fallback"
+
+
+def _rcc(files: dict[str, bytes]) -> bytes:
+    """A Qt resource bundle (format 3) with one folder of zlib-compressed files."""
+    names, data, nodes = b"", b"", []
+
+    def name(text: str) -> int:
+        nonlocal names
+        offset = len(names)
+        names += struct.pack(">HI", len(text), 0) + text.encode("utf-16-be")
+        return offset
+
+    folder = name("sounds")
+    nodes.append(struct.pack(">IHII", 0, 2, 1, 1) + b"\0" * 8)  # root: one child, node 1
+    nodes.append(struct.pack(">IHII", folder, 2, len(files), 2) + b"\0" * 8)
+    for file_name, payload in files.items():
+        packed = struct.pack(">I", len(payload)) + zlib.compress(payload)
+        nodes.append(struct.pack(">IHHHI", name(file_name), 1, 0, 0, len(data)) + b"\0" * 8)
+        data += struct.pack(">I", len(packed)) + packed
+    tree = b"".join(nodes)
+    header = 24
+    return (
+        b"qres"
+        + struct.pack(">IIIII", 3, header, header + len(tree), header + len(tree) + len(data), 0)
+        + tree
+        + data
+        + names
+    )
+
+
+def test_archive_members_are_listed_with_their_archive(tmp_path: Path) -> None:
+    games = tmp_path / "usr/share/games/g"
+    games.mkdir(parents=True)
+    (games / "plain.ogg").write_bytes(b"ogg")
+    buffer = io.BytesIO()
+    with zipfile.ZipFile(buffer, "w") as archive:
+        archive.writestr("sound/a.wav", b"wav-a")
+        archive.writestr("readme.txt", b"not a sound")
+    (games / "data.pk3").write_bytes(buffer.getvalue())
+    (games / "res.rcc").write_bytes(_rcc({"b.ogg": b"ogg-b", "c.txt": b"text"}))
+    found = {sound.path: sound.read() for sound in package_sounds(tmp_path)}
+    assert found == {
+        "usr/share/games/g/data.pk3/sound/a.wav": b"wav-a",
+        "usr/share/games/g/plain.ogg": b"ogg",
+        "usr/share/games/g/res.rcc/sounds/b.ogg": b"ogg-b",
+    }

@@ -1,0 +1,1 @@
+"""Recipe for the training corpus of the concept heads (see training/build_corpus.py)."""
