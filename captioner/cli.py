@@ -71,8 +71,8 @@ def _notices(quiet: bool) -> Callable[[str], None]:
 
 
 def _caption(args: argparse.Namespace) -> int:
-    from . import packs, pipeline, update
-    from .formats import merged_track_path, sound_track_path, write_atomic
+    from . import ownership, packs, pipeline, update
+    from .formats import merged_track_path, sound_track_path, write_together
     from .formats.merge import merge_table
     from .formats.subtitles import dialogue_spans, read_track
     from .report import explain_table, progress_bar
@@ -84,14 +84,25 @@ def _caption(args: argparse.Namespace) -> int:
     track = read_track(args.dialogue) if args.dialogue else None
     if args.merge and track is None:
         raise SubtitleError("--merge", "needs the dialogue track to merge into", "add --dialogue SUBS")
-    if args.merge and track is not None:
+    merging = bool(args.merge and track is not None)
+    if merging and track is not None:
         fmt, output = _merged_target(
             args.output, args.format, track, args.dialogue, merged_track_path(args.input, track.format)
         )
     else:
         fmt, output = _output_target(args)
     updating = args.update and update.updatable(output, merge=args.merge)
-    _refuse_overwrite((output, args.events_json), (args.input, args.dialogue), force=args.force or updating)
+    # A merged track a person changed stays; the new merge goes beside it as a draft.
+    keep_merged = merging and output is not None and not args.force and _changed(output)
+    _refuse_overwrite(
+        (output, args.events_json),
+        (args.input, args.dialogue),
+        force=args.force or updating,
+        allowed={output} if keep_merged and output is not None else set(),
+    )
+    # The sound track a person edited is the truth for the sound cues of a merge.
+    edited_sounds = sound_track_path(args.input, "vtt")
+    merge_edited = merging and _changed(edited_sounds)
     dialogue = dialogue_spans(track.cues) if track is not None else None
     say = _notices(args.quiet)
     pack = packs.load_pack(args.model or packs.DEFAULT_PACK, cache=packs.cache_root(), say=say)
@@ -117,21 +128,28 @@ def _caption(args: argparse.Namespace) -> int:
     if updating and output is not None:
         text, summary = update.update_vtt(output, result.cues, note)
         say(summary.line())
+    elif merge_edited and args.dialogue is not None:
+        text = pipeline.merge_kept_track(edited_sounds, args.dialogue, style)
+        say(f"merged the sound cues of {edited_sounds} as you left them (changed since captioner wrote it)")
     else:
-        text = (
-            drafts.track if drafts.merged_text is None else drafts.merged_text
-        )  # a WebVTT track records its cues for a later --update
-    if output is None:
+        text = drafts.track if drafts.merged_text is None else drafts.merged_text
+    files: list[tuple[Path, str]] = []
+    target = output
+    if output is not None:
+        target = ownership.draft_path(output) if keep_merged else output
+        files.append((target, text))
+    else:
         sys.stdout.write(text)
-    else:
-        write_atomic(output, text, force=args.force or updating)
     if args.events_json:
-        write_atomic(args.events_json, drafts.events_json(), force=args.force or updating)
+        files.append((Path(args.events_json), drafts.events_json()))
+    write_together(_with_backups(files, force=args.force or updating, keep={output}, say=say))
     if args.explain:
         print(explain_table(result), file=sys.stderr)
         if merged is not None:
             print(merge_table(merged), file=sys.stderr)
-    if output is not None and not updating:
+    if keep_merged:
+        say(f"kept {output} as you left it; the new merge is in {target}")
+    elif output is not None and not updating:
         counted = (
             f"{len(result.cues)} cue(s)"
             if merged is None
@@ -141,23 +159,53 @@ def _caption(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def _changed(path: Path) -> bool:
+    """Whether a file exists and is not exactly what captioner wrote into it."""
+    from .ownership import is_ours
+
+    return path.exists() and not is_ours(path)
+
+
+def _with_backups(
+    files: list[tuple[Path, str]], *, force: bool, keep: set[Path | None], say: Callable[[str], None]
+) -> list[tuple[Path, str | bytes]]:
+    """The files to write, led by a backup of each changed file that `force` replaces (the
+    backups land first; files in `keep` are rewritten with all their cues, so need none)."""
+    from .ownership import backup_path
+
+    backups: list[tuple[Path, str | bytes]] = []
+    for path, text in files:
+        if not force or path in keep or not _changed(path):
+            continue
+        old = path.read_bytes()
+        if old != text.encode("utf-8"):
+            backup = backup_path(path)
+            backups.append((backup, old))
+            say(f"kept the old {path} as {backup}: it differs from what captioner last wrote there")
+    return [*backups, *files]
+
+
 def _merge(args: argparse.Namespace) -> int:
-    from .formats import sidecar, write_atomic
-    from .formats.merge import dumps_merged, merge_table, merge_tracks, outcomes_json, sound_cues_from_track
+    from . import pipeline
+    from .formats import sidecar, write_together
+    from .formats.merge import merge_table, outcomes_json, sound_cues_from_track
     from .formats.subtitles import read_track
+    from .ownership import sealed
     from .style import load_style
 
     style = load_style(args.style)
     dialogue = read_track(args.dialogue_subs)
     _, output = _merged_target(args.output, None, dialogue, args.dialogue_subs, None)
     _refuse_overwrite((output, args.events_json), (args.sound_cues, args.dialogue_subs), force=args.force)
-    merged = merge_tracks(dialogue, sound_cues_from_track(read_track(args.sound_cues)), style)
     note = f"Dialogue of {args.dialogue_subs.name} with the sound captions of {args.sound_cues.name}\nmerged by captioner {__version__}, style {style.name}; review before publishing"
-    text = dumps_merged(merged, note)
+    merged, text = pipeline.merge_text(
+        dialogue, sound_cues_from_track(read_track(args.sound_cues)), style, note
+    )
+    files: list[tuple[Path, str]] = []
     if output is None:
         sys.stdout.write(text)
     else:
-        write_atomic(output, text, force=args.force)
+        files.append((output, text))
     if args.events_json:
         document = {
             "dialogue": args.dialogue_subs.name,
@@ -166,7 +214,8 @@ def _merge(args: argparse.Namespace) -> int:
             "strategy": style.merge.strategy,
             "sound_cues": outcomes_json(merged),
         }
-        write_atomic(args.events_json, sidecar.dumps(document), force=args.force)
+        files.append((Path(args.events_json), sealed(sidecar.dumps(document), "json")))
+    write_together(_with_backups(files, force=args.force, keep=set(), say=_notices(args.quiet)))
     if args.explain:
         print(merge_table(merged), file=sys.stderr)
     if output is not None and not args.quiet:
@@ -195,11 +244,16 @@ def _merged_target(
 
 
 def _refuse_overwrite(
-    outputs: tuple[Path | None, ...], inputs: tuple[Path | None, ...], *, force: bool
+    outputs: tuple[Path | None, ...],
+    inputs: tuple[Path | None, ...],
+    *,
+    force: bool,
+    allowed: set[Path] | None = None,
 ) -> None:
     """Check every output before any work, so a run never stops after writing half of them:
-    never an input file, never two outputs on one path, a writable folder, and no existing
-    file without --force."""
+    never an input file, never two outputs on one path, a writable folder, and no file a
+    person changed without --force (a file captioner wrote and nobody changed is replaced;
+    `allowed` files are dealt with by the caller)."""
     sources = {p.resolve() for p in inputs if p is not None}
     seen: set[Path] = set()
     for target in outputs:
@@ -218,11 +272,11 @@ def _refuse_overwrite(
             raise OutputError(target, f"folder {folder} does not exist", "create it or choose another path")
         if not os.access(folder, os.W_OK):
             raise OutputError(target, f"folder {folder} is not writable", "choose a writable folder")
-        if target.exists() and not force:
+        if not force and target not in (allowed or set()) and _changed(target):
             raise OutputError(
                 target,
-                "already exists (it may hold hand edits)",
-                "pass --force to replace it, or choose another path",
+                "already exists and is not what captioner wrote into it (it may hold hand edits)",
+                "pass --update to keep every cue in it and add new ones, --force to replace it (the old file is kept as a backup), or choose another path",
             )
 
 

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import dataclasses
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -135,6 +135,7 @@ class Drafts:
         """The JSON sidecar: every event, decision and score curve, plus the merge outcome."""
         from .formats import sidecar
         from .formats.merge import outcomes_json
+        from .ownership import sealed
 
         document = sidecar.sidecar(self.result, self.vocabulary)
         if self.merged is not None:
@@ -143,7 +144,7 @@ class Drafts:
                 "strategy": self.result.style.merge.strategy,
                 "sound_cues": outcomes_json(self.merged),
             }
-        return sidecar.dumps(document)
+        return sealed(sidecar.dumps(document), "json")  # the seal tells our own file from a changed one
 
 
 def draft_outputs(
@@ -158,19 +159,49 @@ def draft_outputs(
     dialogue track, that track merged with the sound cues."""
     from . import __version__, update
     from .formats import WRITERS
-    from .formats.merge import dropped_decisions, dumps_merged, merge_tracks
+    from .formats.merge import dropped_decisions
 
     note = (
-        f"Sound captions drafted by captioner {__version__} from {result.source.name}\n"
+        f"{update.NOTE_OPENING} {__version__} from {result.source.name}\n"
         f"style {result.style.name}, model pack {result.pack_name}; review before publishing"
     )
     merged, merged_text = None, None
     if merge_with is not None:
-        merged = merge_tracks(merge_with, result.cues, result.style)
+        merged, merged_text = merge_text(
+            merge_with, result.cues, result.style, note + f"\nmerged with the dialogue of {dialogue_name}"
+        )
         drops = {d.event_id: d for d in dropped_decisions(merged)}
         result = dataclasses.replace(
             result, decisions=tuple(drops.get(d.event_id, d) for d in result.decisions)
         )
-        merged_text = dumps_merged(merged, note + f"\nmerged with the dialogue of {dialogue_name}")
     track = update.recorded_vtt(result.cues, note) if fmt == "vtt" else WRITERS[fmt](result.cues, note)
     return Drafts(result, vocabulary, note, track, merged, merged_text, dialogue_name)
+
+
+def merge_text(
+    dialogue: SubtitleTrack, sounds: Sequence[Cue], style: Style, note: str
+) -> tuple[MergedTrack, str]:
+    """Dialogue and sound cues as one track, and its text (a WebVTT one sealed, so a later
+    run can tell it from a hand-edited copy)."""
+    from .formats.merge import dumps_merged, merge_tracks
+    from .ownership import sealed
+
+    merged = merge_tracks(dialogue, sounds, style)
+    return merged, sealed(dumps_merged(merged, note), merged.format)
+
+
+def merge_kept_track(sounds: Path, dialogue: Path, style: Style) -> str:
+    """The merged text for a sound track a person edited: their cues as they left them.
+
+    Raises:
+        SubtitleError: either file cannot be read.
+    """
+    from . import __version__
+    from .formats.merge import sound_cues_from_track
+    from .formats.subtitles import read_track
+
+    note = (
+        f"Dialogue of {dialogue.name} with the sound captions of {sounds.name} as edited by hand\n"
+        f"merged by captioner {__version__}, style {style.name}; review before publishing"
+    )
+    return merge_text(read_track(dialogue), sound_cues_from_track(read_track(sounds)), style, note)[1]
