@@ -75,11 +75,15 @@ def build_parser() -> argparse.ArgumentParser:
         action="store_true",
         help="print a table of kept and dropped events with reasons (to stderr)",
     )
-    caption.add_argument("--force", action="store_true", help="replace existing output files")
+    caption.add_argument(
+        "--force",
+        action="store_true",
+        help="replace output files a person changed, keeping each old one as NAME.backup.EXT",
+    )
     caption.add_argument(
         "--update",
         action="store_true",
-        help="re-run over a .vtt you edited: keep every hand edit, addition and deletion, add new cues only where you did not work (rewrites --events-json too)",
+        help="re-run over a .vtt you edited: keep every cue in it as it is and every deletion, add new cues only where it has none (rewrites --events-json too)",
     )
     caption.add_argument("--quiet", action="store_true", help="no progress or notices")
 
@@ -138,7 +142,11 @@ def build_parser() -> argparse.ArgumentParser:
         action="store_true",
         help="print a table of the sound cues and what the merge did (to stderr)",
     )
-    merge.add_argument("--force", action="store_true", help="replace existing output files")
+    merge.add_argument(
+        "--force",
+        action="store_true",
+        help="replace output files a person changed, keeping each old one as NAME.backup.EXT",
+    )
     merge.add_argument("--quiet", action="store_true", help="no notices")
 
     review = commands.add_parser(
@@ -178,8 +186,8 @@ def build_parser() -> argparse.ArgumentParser:
             "Writes NAME.sounds.vtt (or .srt) and NAME.sounds.json beside each video, or mirrored under -o; where\n"
             "NAME.srt or NAME.vtt dialogue subtitles sit beside a video they mark dialogue, and NAME.merged.* is\n"
             "written too. A run manifest in the output folder lets a re-run skip unchanged files. An output a\n"
-            "person edited is never replaced: the new draft goes beside it as ....new. Cluster workers must see\n"
-            "the media under the same paths as this machine."
+            "person edited is never replaced: the new draft goes beside it as NAME.sounds.draft.vtt, and the merge\n"
+            "is built from the person's sound track. Cluster workers must see the media under the same paths."
         ),
         epilog=(
             "examples:\n"

@@ -8,8 +8,11 @@ access to the media by the same path and nothing else.
 Outputs of a video `NAME.EXT` (beside it, or mirrored under the output folder):
 `NAME.sounds.vtt|srt` (the sound captions), `NAME.sounds.json` (events and decisions) and,
 when a dialogue subtitle `NAME.srt|vtt` sits beside the video, `NAME.merged.vtt|srt`.
-An output that differs from what the manifest says we wrote was edited by a person: it is
-left alone and the new draft is written beside it as `....new`.
+An output that differs from what the manifest says we wrote (and is not provably ours,
+see `captioner.ownership`) was edited by a person: it is left alone and the new draft is
+written beside it as `NAME.sounds.draft.vtt` (`ownership.draft_path`). A merged track is
+built from the sound track as the person left it. The outputs of one file land together
+(`formats.write_together`).
 """
 
 from __future__ import annotations
@@ -23,11 +26,10 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from . import packs
-from .errors import MediaError, OutputError
-from .formats import Format, write_atomic
+from . import ownership, packs, pipeline
+from .errors import CaptionerError, MediaError, OutputError
+from .formats import Format, clear_strays, write_together
 from .manifest import (
-    EDITED_SUFFIX,
     MANIFEST_NAME,
     FileRecord,
     Fingerprint,
@@ -68,7 +70,7 @@ MEDIA_EXTENSIONS = frozenset(
     }
 )
 DIALOGUE_EXTENSIONS = (".vtt", ".srt")
-_OUTPUT_LAYOUT = 1  # bump when output names or contents change for the same settings
+_OUTPUT_LAYOUT = 2  # bump when output names or contents change for the same settings
 
 
 # -- finding the library ----------------------------------------------------------------------
@@ -117,7 +119,7 @@ def find_media(folder: Path, *, output_dir: Path | None = None, fmt: Format = "v
                 (
                     base / by_lower[k]
                     for k in (stem.lower() + e for e in DIALOGUE_EXTENSIONS)
-                    if k in by_lower and k not in ours
+                    if k in by_lower and k not in ours and not ownership.KEPT_NAME.search(k)
                 ),
                 None,
             )
@@ -242,7 +244,7 @@ def run_batch(
             ) as results:
                 for drafted in results:
                     task = jobs[drafted.relative]
-                    _store(task, drafted, root, manifest, tally)
+                    _store(task, drafted, root, manifest, tally, options.style)
                     if tally.last_error:
                         failures_now.append((task.item.relative, tally.last_error))
                         failed_line(tally.last_error)
@@ -310,7 +312,9 @@ class _Tally:
         self.last_error = ""
 
 
-def _store(task: _Task, drafted: Drafted, root: Path, manifest: RunManifest, tally: _Tally) -> None:
+def _store(
+    task: _Task, drafted: Drafted, root: Path, manifest: RunManifest, tally: _Tally, style: Style
+) -> None:
     """Put one file's outputs in place and record it; see `captioner.manifest` for the order."""
     tally.last_error = ""
     previous = task.previous
@@ -333,20 +337,33 @@ def _store(task: _Task, drafted: Drafted, root: Path, manifest: RunManifest, tal
     error = drafted.error
     if not error and drafted.pack_version != task.settings.pack_version:
         error = f"{task.item.path}: worker {drafted.worker} has model pack version {drafted.pack_version}, the run expects {task.settings.pack_version}; install the same pack on every worker"
+    recorded = set(old_outputs.values()) | set(old_pending.values())
+
+    def ours(path: Path) -> bool:
+        return file_hash(path) in recorded or ownership.is_ours(path)
+
+    texts = dict(drafted.texts)
+    edited = {
+        kind for kind in texts if task.item.outputs[kind].exists() and not ours(task.item.outputs[kind])
+    }
+    if not error and "caption" in edited and "merged" in texts and task.item.dialogue is not None:
+        try:  # the person's sound track, not the machine draft, goes into the delivered merge
+            texts["merged"] = pipeline.merge_kept_track(
+                task.item.outputs["caption"], task.item.dialogue, style
+            )
+        except CaptionerError as exc:
+            error = str(exc)
     if error:
         manifest.save(dataclasses.replace(record, error=error, finished_at=time.time()))
         tally.last_error = error
         return
     writes: list[tuple[Path, str, str]] = []
-    for kind, text in drafted.texts.items():
+    for kind, text in texts.items():
         target = task.item.outputs[kind]
-        digest = text_hash(text)
-        key = _key(target, root)
-        current = file_hash(target)
-        if current is not None and current not in (old_outputs.get(key), old_pending.get(key), digest):
-            tally.edited.append(key)
-            target = target.with_name(target.name + EDITED_SUFFIX)
-        writes.append((target, text, digest))
+        if kind in edited:
+            tally.edited.append(_key(target, root))
+            target = ownership.draft_path(target, ours)
+        writes.append((target, text, text_hash(text)))
     pending = {_key(path, root): digest for path, _, digest in writes}
     manifest.save(
         dataclasses.replace(
@@ -358,17 +375,15 @@ def _store(task: _Task, drafted: Drafted, root: Path, manifest: RunManifest, tal
             finished_at=time.time(),
         )
     )
-    written = dict(old_outputs)
     try:
-        for path, text, digest in writes:
-            _put(path, text, digest)
-            written[_key(path, root)] = digest
+        _put([(path, text) for path, text, digest in writes if file_hash(path) != digest])
     except OutputError as exc:
+        # Nothing of this file landed; "writing" makes the next run try it again by itself.
         manifest.save(
             dataclasses.replace(
                 record,
+                status="writing",
                 error=str(exc),
-                outputs=written,
                 pending=old_pending | pending,
                 finished_at=time.time(),
             )
@@ -381,7 +396,7 @@ def _store(task: _Task, drafted: Drafted, root: Path, manifest: RunManifest, tal
             status="done",
             error="",
             cues=drafted.cues,
-            outputs=written,
+            outputs=old_outputs | pending,
             pending={},
             finished_at=time.time(),
         )
@@ -396,23 +411,19 @@ def _key(path: Path, root: Path) -> str:
     return path.relative_to(root).as_posix() if path.is_relative_to(root) else str(path)
 
 
-def _put(path: Path, text: str, digest: str) -> None:
-    """Write atomically unless the file already holds exactly this text."""
-    try:
-        path.parent.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise OutputError(
-            path.parent, f"cannot create the folder ({exc.strerror})", "check the output folder's permissions"
-        ) from exc
-    # A run killed inside write_atomic leaves its hidden temporary file: clear those first.
-    for stray in path.parent.glob(f".{_glob_escape(path.name)}.*.tmp"):
-        stray.unlink(missing_ok=True)
-    if file_hash(path) != digest:
-        write_atomic(path, text, force=True)
-
-
-def _glob_escape(name: str) -> str:
-    return "".join(f"[{c}]" if c in "*?[" else c for c in name)
+def _put(files: list[tuple[Path, str]]) -> None:
+    """Write the files of one media file together, after clearing what a killed run left."""
+    for path, _ in files:
+        try:
+            path.parent.mkdir(parents=True, exist_ok=True)
+        except OSError as exc:
+            raise OutputError(
+                path.parent,
+                f"cannot create the folder ({exc.strerror})",
+                "check the output folder's permissions",
+            ) from exc
+        clear_strays(path)  # a run killed inside write_together leaves hidden temporaries
+    write_together(list(files))
 
 
 # -- progress -----------------------------------------------------------------------------------

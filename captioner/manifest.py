@@ -29,7 +29,6 @@ from .errors import OutputError
 MANIFEST_NAME = "captioner-batch.sqlite3"
 SCHEMA_VERSION = 1
 _EDGE_BYTES = 1 << 20  # bytes hashed at each end of a media file
-EDITED_SUFFIX = ".new"  # beside a hand-edited output, our new draft
 
 Status = Literal["done", "failed", "writing"]  # "writing": outputs were being put in place
 
@@ -269,7 +268,7 @@ class Summary:
     cues: int
     wall_s: float
     workers: int  # local worker processes (0: in the calling process, or on the cluster)
-    edited: tuple[str, ...]  # outputs a person changed; the new draft went beside each as .new
+    edited: tuple[str, ...]  # outputs a person changed; the new draft went beside each (NAME.draft.EXT)
     failures: tuple[tuple[str, str], ...]  # (file, error), this run's and earlier ones
     merged: int  # files that also got a merged dialogue + sound track
     manifest: str
@@ -315,7 +314,7 @@ def summary_table(summary: Summary) -> str:
     ]
     if summary.edited:
         lines.append(
-            f"kept {len(summary.edited)} hand-edited output(s); the new draft is beside each as {EDITED_SUFFIX}:"
+            f"kept {len(summary.edited)} hand-edited output(s) as you left them; the new draft is beside each as NAME.draft.EXT:"
         )
         lines += [f"  {name}" for name in summary.edited]
     if summary.failed_before:
