@@ -142,7 +142,8 @@ def _caption(args: argparse.Namespace) -> int:
         sys.stdout.write(text)
     if args.events_json:
         files.append((Path(args.events_json), drafts.events_json()))
-    write_together(_with_backups(files, force=args.force or updating, keep={output}, say=say))
+    kept_whole = {output} if updating else set()  # an update keeps every cue of it already
+    write_together(_with_backups(files, force=args.force or updating, keep=kept_whole, say=say))
     if args.explain:
         print(explain_table(result), file=sys.stderr)
         if merged is not None:

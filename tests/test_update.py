@@ -136,7 +136,13 @@ def test_edits_additions_and_deletions_survive_a_rerun() -> None:
     assert "[applause]" not in once  # overlaps the hand-made cue
     # e0001 was left alone: it stays as it is, and the new run's copy of it is not added again
     assert summary == update.Summary(
-        kept_unchanged=1, kept_edited=2, kept_added=1, deleted=1, new_written=1, new_skipped=4, already_there=1
+        kept_unchanged=1,
+        kept_edited=2,
+        kept_added=1,
+        deleted=1,
+        new_written=1,
+        new_skipped=4,
+        already_there=1,
     )
 
     twice, _ = _rerun(once, new_run)
