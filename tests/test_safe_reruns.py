@@ -196,7 +196,7 @@ def test_force_keeps_a_changed_file_as_a_backup_that_never_clashes(
     backup = tmp_path / "talk.backup.srt"
     assert f"kept the old {out} as {backup}" in err
     assert backup.read_text() == edited
-    assert [s.content for s in srt.parse(backup.read_text())][0] == "[kettle whistling]"  # still SubRip
+    assert next(s.content for s in srt.parse(backup.read_text())) == "[kettle whistling]"  # still SubRip
 
     out.write_text(edited.replace("kettle", "teapot"))
     assert main(["caption", str(media), "-o", str(out), "--force", "--quiet"]) == 0
@@ -343,7 +343,7 @@ def test_batch_drafts_open_as_subtitles_and_are_not_mistaken_on_a_later_scan(
     os.utime(media, ns=(stamp + 10**9, stamp + 10**9))  # the media changed: drafted again
     assert main(["batch", str(lib), "--workers", "1", "--format", "srt", "--quiet"]) == 0
     draft = lib / "a.sounds.draft.srt"
-    assert [s.content for s in srt.parse(draft.read_text())][0] == "[beeping]"  # SubRip, by extension too
+    assert next(s.content for s in srt.parse(draft.read_text())) == "[beeping]"  # SubRip, by extension too
     assert ownership.KEPT_NAME.search(draft.name)
     oddly_named = lib / "a.sounds.draft.mp4"  # a video whose dialogue would be a.sounds.draft.srt
     oddly_named.write_bytes(b"")
