@@ -70,6 +70,7 @@ MEDIA_EXTENSIONS = frozenset(
     }
 )
 DIALOGUE_EXTENSIONS = (".vtt", ".srt")
+_MERGED_FROM = "#merged-from"  # manifest key suffix: hash of the edited sound track a merge used
 _OUTPUT_LAYOUT = 2  # bump when output names or contents change for the same settings
 
 
@@ -220,6 +221,7 @@ def run_batch(
                 and previous is not None
                 and previous.status == "done"
                 and all(p.exists() for p in item.outputs.values())
+                and _merge_is_current(item, previous, root)
             ):
                 skipped += 1
             elif same and previous is not None and previous.status == "failed" and not options.retry_failed:
@@ -337,7 +339,7 @@ def _store(
     error = drafted.error
     if not error and drafted.pack_version != task.settings.pack_version:
         error = f"{task.item.path}: worker {drafted.worker} has model pack version {drafted.pack_version}, the run expects {task.settings.pack_version}; install the same pack on every worker"
-    recorded = set(old_outputs.values()) | set(old_pending.values())
+    recorded = {h for k, h in old_outputs.items() if not k.endswith(_MERGED_FROM)} | set(old_pending.values())
 
     def ours(path: Path) -> bool:
         return file_hash(path) in recorded or ownership.is_ours(path)
@@ -346,11 +348,12 @@ def _store(
     edited = {
         kind for kind in texts if task.item.outputs[kind].exists() and not ours(task.item.outputs[kind])
     }
+    merged_from: dict[str, str] = {}  # the edited sound track a merge was built from, by its hash
     if not error and "caption" in edited and "merged" in texts and task.item.dialogue is not None:
+        caption = task.item.outputs["caption"]
         try:  # the person's sound track, not the machine draft, goes into the delivered merge
-            texts["merged"] = pipeline.merge_kept_track(
-                task.item.outputs["caption"], task.item.dialogue, style
-            )
+            texts["merged"] = pipeline.merge_kept_track(caption, task.item.dialogue, style)
+            merged_from[_key(caption, root) + _MERGED_FROM] = file_hash(caption) or ""
         except CaptionerError as exc:
             error = str(exc)
     if error:
@@ -396,7 +399,7 @@ def _store(
             status="done",
             error="",
             cues=drafted.cues,
-            outputs=old_outputs | pending,
+            outputs=old_outputs | pending | merged_from,
             pending={},
             finished_at=time.time(),
         )
@@ -405,6 +408,16 @@ def _store(
     tally.media_ms += drafted.duration_ms
     tally.cues += drafted.cues
     tally.merged += "merged" in drafted.texts
+
+
+def _merge_is_current(item: MediaFile, previous: FileRecord, root: Path) -> bool:
+    """Whether the merged track was built from the sound track as it is now: a person who
+    edits the sound track after a run gets the merge rebuilt from it by the next run."""
+    if "merged" not in item.outputs:
+        return True
+    key = _key(item.outputs["caption"], root)
+    current = file_hash(item.outputs["caption"])
+    return current in (previous.outputs.get(key), previous.outputs.get(key + _MERGED_FROM))
 
 
 def _key(path: Path, root: Path) -> str:

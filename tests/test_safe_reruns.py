@@ -114,6 +114,11 @@ def test_batch_merges_the_sound_track_a_person_edited_and_keeps_an_edited_merge(
     assert merged.read_text() == merged_edit
     beside = [c.text for c in cues(out / "a_talk.merged.draft.vtt")]
     assert "[dog barking excitedly]" in beside and "Hello there." in beside
+    # Edited again, nothing else changed: the next run builds the merge from it once more.
+    sounds.write_text(retext(sounds.read_text(), 0, "[two dogs barking]"))
+    assert main(["batch", str(lib), "-o", str(out), "--workers", "1", "--quiet"]) == 0
+    assert "[two dogs barking]" in [c.text for c in cues(out / "a_talk.merged.draft.vtt")]
+    assert merged.read_text() == merged_edit and not (out / "a_talk.merged.draft-2.vtt").exists()
     assert no_temporaries(out)
 
 
