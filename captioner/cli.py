@@ -72,7 +72,7 @@ def _notices(quiet: bool) -> Callable[[str], None]:
 
 def _caption(args: argparse.Namespace) -> int:
     from . import ownership, packs, pipeline, update
-    from .formats import merged_track_path, sound_track_path, write_together
+    from .formats import merged_track_path, sound_track_path
     from .formats.merge import merge_table
     from .formats.subtitles import dialogue_spans, read_track
     from .report import explain_table, progress_bar
@@ -143,7 +143,7 @@ def _caption(args: argparse.Namespace) -> int:
     if args.events_json:
         files.append((Path(args.events_json), drafts.events_json()))
     kept_whole = {output} if updating else set()  # an update keeps every cue of it already
-    write_together(_with_backups(files, force=args.force or updating, keep=kept_whole, say=say))
+    _write_with_backups(files, force=args.force or updating, keep=kept_whole, say=say)
     if args.explain:
         print(explain_table(result), file=sys.stderr)
         if merged is not None:
@@ -167,28 +167,30 @@ def _changed(path: Path) -> bool:
     return path.exists() and not is_ours(path)
 
 
-def _with_backups(
+def _write_with_backups(
     files: list[tuple[Path, str]], *, force: bool, keep: set[Path | None], say: Callable[[str], None]
-) -> list[tuple[Path, str | bytes]]:
-    """The files to write, led by a backup of each changed file that `force` replaces (the
-    backups land first; files in `keep` are rewritten with all their cues, so need none)."""
+) -> None:
+    """Write the files together, with a backup of each changed file that `force` replaces
+    landing first (files in `keep` are rewritten with all their cues, so need none); each
+    backup is named once it is in place."""
+    from .formats import write_together
     from .ownership import backup_path
 
-    backups: list[tuple[Path, str | bytes]] = []
+    backups: dict[Path, tuple[Path, bytes]] = {}  # changed file -> (its backup, its bytes)
     for path, text in files:
         if not force or path in keep or not _changed(path):
             continue
         old = path.read_bytes()
         if old != text.encode("utf-8"):
-            backup = backup_path(path)
-            backups.append((backup, old))
-            say(f"kept the old {path} as {backup}: it differs from what captioner last wrote there")
-    return [*backups, *files]
+            backups[path] = (backup_path(path), old)
+    write_together([*backups.values(), *files])
+    for path, (backup, _) in backups.items():
+        say(f"kept the old {path} as {backup}: it differs from what captioner last wrote there")
 
 
 def _merge(args: argparse.Namespace) -> int:
     from . import pipeline
-    from .formats import sidecar, write_together
+    from .formats import sidecar
     from .formats.merge import merge_table, outcomes_json, sound_cues_from_track
     from .formats.subtitles import read_track
     from .ownership import sealed
@@ -216,7 +218,7 @@ def _merge(args: argparse.Namespace) -> int:
             "sound_cues": outcomes_json(merged),
         }
         files.append((Path(args.events_json), sealed(sidecar.dumps(document), "json")))
-    write_together(_with_backups(files, force=args.force, keep=set(), say=_notices(args.quiet)))
+    _write_with_backups(files, force=args.force, keep=set(), say=_notices(args.quiet))
     if args.explain:
         print(merge_table(merged), file=sys.stderr)
     if output is not None and not args.quiet:
