@@ -143,7 +143,7 @@ def _caption(args: argparse.Namespace) -> int:
     if args.events_json:
         files.append((Path(args.events_json), drafts.events_json()))
     kept_whole = {output} if updating else set()  # an update keeps every cue of it already
-    _write_with_backups(files, force=args.force or updating, keep=kept_whole, say=say)
+    _write_with_backups(files, force=args.force or updating, keep=kept_whole)
     if args.explain:
         print(explain_table(result), file=sys.stderr)
         if merged is not None:
@@ -167,12 +167,10 @@ def _changed(path: Path) -> bool:
     return path.exists() and not is_ours(path)
 
 
-def _write_with_backups(
-    files: list[tuple[Path, str]], *, force: bool, keep: set[Path | None], say: Callable[[str], None]
-) -> None:
+def _write_with_backups(files: list[tuple[Path, str]], *, force: bool, keep: set[Path | None]) -> None:
     """Write the files together, with a backup of each changed file that `force` replaces
     landing first (files in `keep` are rewritten with all their cues, so need none); each
-    backup is named once it is in place."""
+    backup is named once it is in place, even with --quiet: it is where the person's work is."""
     from .formats import write_together
     from .ownership import backup_path
 
@@ -185,7 +183,10 @@ def _write_with_backups(
             backups[path] = (backup_path(path), old)
     write_together([*backups.values(), *files])
     for path, (backup, _) in backups.items():
-        say(f"kept the old {path} as {backup}: it differs from what captioner last wrote there")
+        print(
+            f"captioner: kept the old {path} as {backup}: it differs from what captioner last wrote there",
+            file=sys.stderr,
+        )
 
 
 def _merge(args: argparse.Namespace) -> int:
@@ -218,7 +219,7 @@ def _merge(args: argparse.Namespace) -> int:
             "sound_cues": outcomes_json(merged),
         }
         files.append((Path(args.events_json), sealed(sidecar.dumps(document), "json")))
-    _write_with_backups(files, force=args.force, keep=set(), say=_notices(args.quiet))
+    _write_with_backups(files, force=args.force, keep=set())
     if args.explain:
         print(merge_table(merged), file=sys.stderr)
     if output is not None and not args.quiet:
@@ -276,10 +277,11 @@ def _refuse_overwrite(
         if not os.access(folder, os.W_OK):
             raise OutputError(target, f"folder {folder} is not writable", "choose a writable folder")
         if not force and target not in (allowed or set()) and _changed(target):
+            update = "--update to keep every cue in it and add new ones, " if target.suffix == ".vtt" else ""
             raise OutputError(
                 target,
                 "already exists and is not what captioner wrote into it (it may hold hand edits)",
-                "pass --update to keep every cue in it and add new ones, --force to replace it (the old file is kept as a backup), or choose another path",
+                f"pass {update}--force to replace it (the old file is kept as a backup), or choose another path",
             )
 
 

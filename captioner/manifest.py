@@ -123,7 +123,7 @@ def fingerprint(path: Path) -> Fingerprint:
 
 
 def text_hash(text: str) -> str:
-    """SHA-256 of text as write_atomic stores it (UTF-8)."""
+    """SHA-256 of text as write_together stores it (UTF-8)."""
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 

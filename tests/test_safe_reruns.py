@@ -39,6 +39,13 @@ def two_sounds(path: Path) -> Path:
     )
 
 
+def captioned(folder: Path) -> tuple[Path, Path]:
+    """`captioner caption talk.wav`: the media and the sound track written beside it."""
+    media = two_sounds(folder / "talk.wav")
+    assert main(["caption", str(media), "--quiet"]) == 0
+    return media, folder / "talk.sounds.vtt"
+
+
 def cues(path: Path) -> list[webvtt.Caption]:
     return list(webvtt.read(str(path)).captions)
 
@@ -153,9 +160,7 @@ def test_caption_merge_uses_the_edited_sound_track_and_keeps_an_edited_merge(
 def test_update_keeps_an_untouched_machine_cue_beside_a_hand_cue_and_unique_ids(
     tmp_path: Path, capsys: pytest.CaptureFixture[str], pack: object
 ) -> None:
-    media = two_sounds(tmp_path / "talk.wav")
-    assert main(["caption", str(media), "--quiet"]) == 0
-    sounds = tmp_path / "talk.sounds.vtt"
+    media, sounds = captioned(tmp_path)
     text = sounds.read_text()
     machine = cues(sounds)
     # A hand cue that starts inside the untouched second machine cue, and a copy of the
@@ -205,6 +210,7 @@ def test_force_keeps_a_changed_file_as_a_backup_that_never_clashes(
 
     out.write_text(edited.replace("kettle", "teapot"))
     assert main(["caption", str(media), "-o", str(out), "--force", "--quiet"]) == 0
+    assert "as " + str(tmp_path / "talk.backup-2.srt") in capsys.readouterr().err  # named even when quiet
     assert backup.read_text() == edited  # the first backup is never overwritten
     assert "[teapot whistling]" in (tmp_path / "talk.backup-2.srt").read_text()
 
@@ -223,9 +229,7 @@ def test_force_keeps_a_changed_file_as_a_backup_that_never_clashes(
 def test_update_reads_a_record_reflowed_with_crlf_and_bom_and_works_without_one(
     tmp_path: Path, capsys: pytest.CaptureFixture[str], pack: object
 ) -> None:
-    media = two_sounds(tmp_path / "talk.wav")
-    assert main(["caption", str(media), "--quiet"]) == 0
-    sounds = tmp_path / "talk.sounds.vtt"
+    media, sounds = captioned(tmp_path)
     text = sounds.read_text()
     resaved = text.replace("[beeping]", "[beeping twice]").replace(
         "NOTE captioner record 1\ncue", "NOTE captioner\nrecord 1\ncue"

@@ -195,6 +195,12 @@ class SafeReruns(RuleBasedStateMachine):
         start, end = lines[timing].split(" --> ")
         return start, end.split(" ")[0], "\n".join(lines[timing + 1 :])
 
+    def picked(self, name: str, pick: int) -> tuple[list[str], int | None]:
+        """The blocks of a media file's track, and the position of the cue `pick` chooses."""
+        blocks = self.blocks(name) or []
+        positions = self.cue_positions(blocks)
+        return blocks, positions[pick % len(positions)] if positions else None
+
     def forget(self, name: str, block: str) -> None:
         """The person changed a cue again: what they made of it before is theirs to change."""
         self.promised[name].discard(self.shown(block))
@@ -205,10 +211,9 @@ class SafeReruns(RuleBasedStateMachine):
 
     @rule(name=st.sampled_from(MEDIA), pick=st.integers(0, 20))
     def change_text(self, name: str, pick: int) -> None:
-        blocks = self.blocks(name)
-        if not blocks or not self.cue_positions(blocks):
+        blocks, position = self.picked(name, pick)
+        if position is None:
             return
-        position = self.cue_positions(blocks)[pick % len(self.cue_positions(blocks))]
         self.forget(name, blocks[position])
         lines = blocks[position].split("\n")
         timing = next(n for n, line in enumerate(lines) if "-->" in line)
@@ -218,10 +223,9 @@ class SafeReruns(RuleBasedStateMachine):
 
     @rule(name=st.sampled_from(MEDIA), pick=st.integers(0, 20), by_ms=st.integers(-800, 800))
     def shift_times(self, name: str, pick: int, by_ms: int) -> None:
-        blocks = self.blocks(name)
-        if not blocks or not self.cue_positions(blocks):
+        blocks, position = self.picked(name, pick)
+        if position is None:
             return
-        position = self.cue_positions(blocks)[pick % len(self.cue_positions(blocks))]
         start, end, _ = self.shown(blocks[position])
         self.forget(name, blocks[position])
         moved_start = max(_ms(start) + by_ms, 0)
@@ -235,10 +239,9 @@ class SafeReruns(RuleBasedStateMachine):
 
     @rule(name=st.sampled_from(MEDIA), pick=st.integers(0, 20))
     def delete(self, name: str, pick: int) -> None:
-        blocks = self.blocks(name)
-        if not blocks or not self.cue_positions(blocks):
+        blocks, position = self.picked(name, pick)
+        if position is None:
             return
-        position = self.cue_positions(blocks)[pick % len(self.cue_positions(blocks))]
         self.forget(name, blocks.pop(position))
         self.save(name, blocks)
 
@@ -253,10 +256,10 @@ class SafeReruns(RuleBasedStateMachine):
 
     @rule(name=st.sampled_from(MEDIA), pick=st.integers(0, 20), at_ms=st.integers(0, 15_000))
     def copy_with_its_identifier(self, name: str, pick: int, at_ms: int) -> None:
-        blocks = self.blocks(name)
-        if not blocks or not self.cue_positions(blocks):
+        blocks, position = self.picked(name, pick)
+        if position is None:
             return
-        lines = blocks[self.cue_positions(blocks)[pick % len(self.cue_positions(blocks))]].split("\n")
+        lines = blocks[position].split("\n")
         timing = next(n for n, line in enumerate(lines) if "-->" in line)
         lines[timing] = f"{_stamp(at_ms)} --> {_stamp(at_ms + 1000)}"
         blocks.append("\n".join(lines))
