@@ -28,7 +28,7 @@ from typing import Any
 
 from . import ownership, packs, pipeline
 from .errors import CaptionerError, MediaError, OutputError
-from .formats import Format, clear_strays, write_together
+from .formats import Format, write_together
 from .manifest import (
     MANIFEST_NAME,
     FileRecord,
@@ -425,7 +425,7 @@ def _key(path: Path, root: Path) -> str:
 
 
 def _put(files: list[tuple[Path, str]]) -> None:
-    """Write the files of one media file together, after clearing what a killed run left."""
+    """Write the files of one media file together (clearing first what a killed run left)."""
     for path, _ in files:
         try:
             path.parent.mkdir(parents=True, exist_ok=True)
@@ -435,7 +435,6 @@ def _put(files: list[tuple[Path, str]]) -> None:
                 f"cannot create the folder ({exc.strerror})",
                 "check the output folder's permissions",
             ) from exc
-        clear_strays(path)  # a run killed inside write_together leaves hidden temporaries
     write_together(list(files))
 
 

@@ -70,13 +70,15 @@ def write_together(files: Sequence[tuple[Path, str | bytes]]) -> None:
     to the old file kept aside until all renames are done, so a failure puts every old file
     back. Existing targets are replaced: the caller has decided they may be. Nothing is left
     behind but the targets, unless the process is killed (then only hidden `.NAME.*.tmp`
-    files, which `clear_strays` removes).
+    files, which the next write of that name clears first).
 
     Raises:
         OutputError: a folder is missing or not writable, or a write or rename failed.
     """
     temporaries: list[tuple[Path, Path]] = []
     asides: list[tuple[Path, Path | None]] = []  # (target, its old content aside, or None if new)
+    for path, _ in files:
+        clear_strays(Path(path))
     try:
         for path, text in files:
             temporaries.append((Path(path), _temporary(Path(path), text)))
