@@ -335,6 +335,26 @@ def test_a_batch_write_failure_is_retried_by_the_next_run(
     assert summary.ok and summary.done == 1 and (lib / "a.sounds.vtt").is_file()
 
 
+def test_a_sidecar_or_merge_changed_by_hand_is_told_from_our_own_by_its_seal(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], pack: object
+) -> None:
+    media = two_sounds(tmp_path / "talk.wav")
+    run = ["caption", str(media), "--events-json", "--quiet"]
+    assert main(run) == 0
+    sidecar = tmp_path / "talk.sounds.json"
+    assert json.loads(sidecar.read_text())["sealed"].startswith("sha256:")  # still plain JSON
+    assert ownership.is_ours(sidecar) and main(run) == 0
+    sidecar.write_text(sidecar.read_text().replace('"style": "brackets"', '"style": "mine"'))
+    assert not ownership.is_ours(sidecar)
+    assert main(run) == 2
+    err = capsys.readouterr().err
+    assert "talk.sounds.json: already exists" in err and "--update" not in err  # no --update for JSON
+    merged = "WEBVTT\n\nd1\n00:00:01.000 --> 00:00:02.000\nHello.\n"
+    sealed = ownership.sealed(merged, "vtt")
+    assert ownership.is_sealed(sealed) and webvtt.from_string(sealed).captions[0].text == "Hello."
+    assert not ownership.is_sealed(sealed.replace("Hello.", "Hi."))
+
+
 # -- 6. drafts keep their extension and are never taken for dialogue or outputs ------------
 
 

@@ -279,3 +279,40 @@ def test_identifiers_are_unique_even_when_two_cues_share_an_event() -> None:
     split = (_cue(1000, 1200, "[doorbell ringing]", "e0001"), _cue(1200, 2000, "[doorbell ringing]", "e0001"))
     identifiers = [c.identifier for c in _reference(update.recorded_vtt(split, ""))]
     assert identifiers == ["e0001", "e0001-2"]
+
+
+def test_the_record_is_read_however_another_editor_reflowed_it() -> None:
+    text = update.recorded_vtt(MACHINE, "note")
+    entries = update.read_record(text)
+    assert entries is not None and len(entries) == 4
+    reflowed = text.replace("NOTE captioner record 1\n", "NOTE captioner\n  record 1 \n")
+    reflowed = re.sub(r"^(cue \S+) (\S+) ", r"\1\n\2\n", reflowed, flags=re.MULTILINE)
+    for variant in (reflowed, reflowed.replace("\n", "\r\n"), "\ufeff" + reflowed.replace("\n", "\r\n")):
+        assert update.read_record(variant) == entries
+    assert update.read_record(text.replace("NOTE captioner record 1", "NOTE captioner notes")) is None
+
+
+def test_a_block_copied_with_its_identifier_is_kept_under_a_free_one() -> None:
+    text = update.recorded_vtt(MACHINE, "")
+    copy = "e0002\n00:00:20.000 --> 00:00:21.000\n[dog barking]\n"
+    result, summary = _rerun(text + "\n" + copy)
+    captions = _reference(result)
+    identifiers = [c.identifier for c in captions]
+    # W3C WebVTT: cue identifiers are unique within a file (from memory of §4.1)
+    assert len(identifiers) == len(set(identifiers)) == 5
+    assert ("00:00:20.000", "[dog barking]") in [(c.start, c.text) for c in captions]
+    record = [line for line in result.splitlines() if line.startswith("cue ")]
+    assert len(record) == len(set(record)) == 4  # the copy is the person's: no record line of its own
+    assert summary.renamed == 1 and summary.kept_added == 1
+
+
+def test_only_a_file_exactly_as_written_counts_as_untouched() -> None:
+    text = update.recorded_vtt(MACHINE, f"{update.NOTE_OPENING} 0.1.0 from a.mp4")
+    assert update.is_untouched(text) and update.is_untouched(text.replace("\n", "\r\n"))
+    assert not update.is_untouched(_edit(text, "[dog barking]", "[dog yapping]"))
+    assert not update.is_untouched(
+        _edit(text, "e0003\n00:00:05.000 --> 00:00:06.000\n[glass breaking]\n\n", "")
+    )
+    assert not update.is_untouched(text + "\n00:00:30.000 --> 00:00:31.000\n[added]\n")
+    assert not update.is_untouched(_edit(text, "\n\ne0001\n", "\n\nNOTE checked by the editor\n\ne0001\n"))
+    assert not update.is_untouched("WEBVTT\n\n00:00.000 --> 00:01.000\n[no record]\n")
