@@ -22,7 +22,7 @@ test: $(READY)
 # Lint and type checks (pinned tool versions in the `check` extra).
 check: $(READY)
 	$(BIN)/python -m pip install --quiet -e '.[test,check]'
-	$(BIN)/ruff check captioner tests
+	$(BIN)/ruff check captioner tests training
 	$(BIN)/mypy
 
 bench: $(READY)

@@ -14,9 +14,11 @@ def build_parser() -> argparse.ArgumentParser:
     """Every command, option and worked example of the command line."""
     parser = argparse.ArgumentParser(
         prog="captioner",
-        description="Draft caption tracks for the non-speech sounds of a video (sound effects, music, reactions).",
+        description="Draft caption tracks for the non-speech sounds of a video (sound effects, music, "
+        "reactions).",
         formatter_class=argparse.RawDescriptionHelpFormatter,
-        epilog="examples:\n  captioner caption talk.mp4\n  captioner caption film.mkv --format srt --style capitals -o film.sounds.srt\n  captioner models install",
+        epilog="examples:\n  captioner caption talk.mp4\n  captioner caption film.mkv --format srt --style "
+        "capitals -o film.sounds.srt\n  captioner models install",
     )
     parser.add_argument("--version", action="version", version=f"captioner {__version__}")
     parser.add_argument("--debug", action="store_true", help="show tracebacks for errors")
@@ -30,7 +32,8 @@ def build_parser() -> argparse.ArgumentParser:
             "examples:\n"
             "  captioner caption demo.mp4                      # writes demo.sounds.vtt beside it\n"
             "  captioner caption demo.mp4 -o - --explain       # print cues and the decisions\n"
-            "  captioner caption show.mkv --audio-stream 1 --format srt --dialogue show.en.srt"
+            "  captioner caption show.mkv --audio-stream 1 --format srt --dialogue show.en.srt\n"
+            "  captioner caption dual.mkv --audio-stream 'music effects'   # by words of the stream's title"
         ),
     )
     caption.add_argument("input", type=Path, help="video or audio file (anything ffmpeg reads)")
@@ -51,25 +54,21 @@ def build_parser() -> argparse.ArgumentParser:
     caption.add_argument(
         "--merge",
         action="store_true",
-        help="write one track: the --dialogue cues unchanged plus the sound cues (default -o: INPUT.merged.vtt/.srt)",
+        help="write one track: the --dialogue cues unchanged plus the sound cues (default -o: "
+        "INPUT.merged.vtt/.srt)",
     )
     caption.add_argument(
         "--events-json",
         type=Path,
         nargs="?",
         const=DEFAULT_SIDECAR,
-        help="also write every detected event, decision and score curve as JSON (default path: NAME.sounds.json beside INPUT)",
+        help="also write every detected event, decision and score curve as JSON (default path: "
+        "NAME.sounds.json beside INPUT)",
     )
     caption.add_argument(
         "--model", default=None, help="model pack name or manifest path (default: yamnet-int8)"
     )
-    caption.add_argument(
-        "--audio-stream",
-        type=int,
-        default=None,
-        metavar="N",
-        help="which audio stream to use, 0 = first (default: the default stream)",
-    )
+    _stream_options(caption)
     caption.add_argument(
         "--explain",
         action="store_true",
@@ -83,7 +82,8 @@ def build_parser() -> argparse.ArgumentParser:
     caption.add_argument(
         "--update",
         action="store_true",
-        help="re-run over a .vtt you edited: keep every cue in it as it is and every deletion, add new cues only where it has none (rewrites --events-json too)",
+        help="re-run over a .vtt you edited: keep every cue in it as it is and every deletion, add new "
+        "cues only where it has none (rewrites --events-json too)",
     )
     caption.add_argument("--quiet", action="store_true", help="no progress or notices")
 
@@ -101,6 +101,33 @@ def build_parser() -> argparse.ArgumentParser:
         default=None,
         help="folder already holding the pack's wheel (offline install)",
     )
+
+    teach = commands.add_parser(
+        "teach",
+        help="teach captioner sounds of your own: train concept heads from labelled clips",
+        description=(
+            "Train one head per concept over the classifier's embedding from your labelled clips, print"
+            " each head's cross-validated AUC and average precision, and write a head file plus a pack"
+            " manifest that `--model` accepts."
+        ),
+        epilog=(
+            "examples:\n"
+            "  captioner teach my_sounds/ -o my_sounds.heads.npz    # my_sounds/gate_squeak/*.wav ...\n"
+            "  captioner teach labels.csv -o studio.heads.npz        # rows: file,onset,offset,concept\n"
+            "  captioner caption take1.mp4 --model my_sounds.pack.yaml"
+        ),
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    teach.add_argument(
+        "source",
+        type=Path,
+        help="a folder with one sub-folder of clips per concept (_other/: clips that are none), or a CSV",
+    )
+    teach.add_argument("-o", "--output", type=Path, required=True, help="head file to write (.heads.npz)")
+    teach.add_argument("--model", default=None, help="pack to extend (default: yamnet-int8)")
+    teach.add_argument("--folds", type=int, default=5, help="cross-validation folds (default: 5)")
+    teach.add_argument("--force", action="store_true", help="replace existing outputs")
+    teach.add_argument("--quiet", action="store_true", help="no progress lines")
 
     merge = commands.add_parser(
         "merge",
@@ -151,13 +178,18 @@ def build_parser() -> argparse.ArgumentParser:
 
     review = commands.add_parser(
         "review",
-        help="write a review page (one HTML file) to check, fix and save a sound-caption track",
+        help="check, fix and save a sound-caption track in a browser (--serve), "
+        "or write the page as one HTML file",
         formatter_class=argparse.RawDescriptionHelpFormatter,
         epilog=(
             "examples:\n"
-            "  captioner review demo.mp4 -o demo.review.html          # uses demo.sounds.vtt and demo.sounds.json beside it\n"
+            "  captioner review demo.mp4 --serve                      # opens the page; "
+            "saves go straight to demo.sounds.vtt\n"
+            "  captioner review demo.mp4 -o demo.review.html          # one file to share; "
+            "it saves by download\n"
             "  captioner review talk.wav --captions talk.sounds.srt --events-json talk.json -o talk.html\n"
-            "  captioner caption demo.mp4 --update                    # after saving your edits as demo.sounds.vtt"
+            "  captioner caption demo.mp4 --update                    # after saving your edits as "
+            "demo.sounds.vtt"
         ),
     )
     review.add_argument(
@@ -173,21 +205,37 @@ def build_parser() -> argparse.ArgumentParser:
     review.add_argument(
         "--events-json",
         type=Path,
-        help="sidecar from `caption --events-json`: score curves, dialogue, dropped candidates (default: NAME.sounds.json beside INPUT, if present)",
+        help="sidecar from `caption --events-json`: score curves, dialogue, dropped candidates (default: "
+        "NAME.sounds.json beside INPUT, if present)",
     )
-    review.add_argument("-o", "--output", type=Path, required=True, help="HTML page to write")
+    where = review.add_mutually_exclusive_group(required=True)
+    where.add_argument("-o", "--output", type=Path, help="HTML page to write")
+    where.add_argument(
+        "--serve",
+        action="store_true",
+        help="serve the page from this computer only (127.0.0.1) until Ctrl-C; "
+        "saving writes the caption track in place",
+    )
     review.add_argument("--force", action="store_true", help="replace an existing page")
+    review.add_argument(
+        "--no-browser", action="store_true", help="with --serve: print the address, open no browser"
+    )
+    review.add_argument(
+        "--port", type=int, default=0, help="with --serve: the port to listen on (default: any free one)"
+    )
 
     batch = commands.add_parser(
         "batch",
-        help="caption every media file under a folder; resumable, on local worker processes or a Dask cluster",
+        help="caption every media file under a folder; resumable, on local worker processes or a Dask "
+        "cluster",
         formatter_class=argparse.RawDescriptionHelpFormatter,
         description=(
-            "Writes NAME.sounds.vtt (or .srt) and NAME.sounds.json beside each video, or mirrored under -o; where\n"
-            "NAME.srt or NAME.vtt dialogue subtitles sit beside a video they mark dialogue, and NAME.merged.* is\n"
-            "written too. A run manifest in the output folder lets a re-run skip unchanged files. An output a\n"
-            "person edited is never replaced: the new draft goes beside it as NAME.sounds.draft.vtt, and the merge\n"
-            "is built from the person's sound track. Cluster workers must see the media under the same paths."
+            "Writes NAME.sounds.vtt (or .srt) and NAME.sounds.json beside each video, or mirrored\n"
+            "under -o; where NAME.srt or NAME.vtt dialogue subtitles sit beside a video they mark\n"
+            "dialogue, and NAME.merged.* is written too. A run manifest in the output folder lets a\n"
+            "re-run skip unchanged files. An output a person edited is never replaced: the new draft\n"
+            "goes beside it as NAME.sounds.draft.vtt, and the merge is built from the person's sound\n"
+            "track. Cluster workers must see the media under the same paths as this machine."
         ),
         epilog=(
             "examples:\n"
@@ -223,6 +271,7 @@ def build_parser() -> argparse.ArgumentParser:
         help="send the work to this Dask scheduler instead (needs captioner[cluster])",
     )
     batch.add_argument("--style", default="brackets", help="style preset name or a style .yaml file")
+    _stream_options(batch)
     batch.add_argument(
         "--format", choices=("vtt", "srt"), default="vtt", help="caption format (default: vtt)"
     )
@@ -239,27 +288,78 @@ def build_parser() -> argparse.ArgumentParser:
     )
     batch.add_argument("--json", action="store_true", help="print the run summary as JSON on standard output")
 
-    commands.add_parser(
+    check = commands.add_parser(
+        "check",
+        help="report every cue of a caption track that breaks a style's layout and timing, or WebVTT",
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+        epilog=(
+            "examples:\n  captioner check show.sounds.vtt\n  captioner check show.en.srt --style capitals\n"
+            "  captioner check show.merged.vtt --json > findings.json"
+        ),
+    )
+    check.add_argument("track", type=Path, metavar="TRACK", help="a .vtt or .srt file (hand-edited or not)")
+    check.add_argument("--style", default="brackets", help="style preset or .yaml file whose limits apply")
+    check.add_argument("--json", action="store_true", help="print the findings as JSON on standard output")
+
+    deliver = commands.add_parser(
+        "deliver",
+        help="write a clean copy of a track for publishing: no NOTE heading, no edit record",
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+        epilog=(
+            "examples:\n  captioner deliver show.sounds.vtt -o show.en.vtt\n"
+            "  captioner deliver show.merged.vtt -o upload/show.vtt --force"
+        ),
+    )
+    deliver.add_argument(
+        "track", type=Path, metavar="TRACK", help="the working track (.vtt/.srt); never changed"
+    )
+    deliver.add_argument(
+        "-o", "--output", type=Path, required=True, help="the clean copy, same format as TRACK"
+    )
+    deliver.add_argument("--force", action="store_true", help="replace an existing output file")
+
+    streams = commands.add_parser(
+        "streams",
+        help="list a media file's audio streams (and its text subtitle streams) "
+        "to choose one with --audio-stream",
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+        epilog=(
+            "examples:\n"
+            "  captioner streams dual.mkv\n"
+            "  captioner caption dual.mkv --audio-stream fre            # by language\n"
+            "  captioner caption dual.mkv --audio-stream 'music and effects'"
+        ),
+    )
+    streams.add_argument("input", type=Path, help="video or audio file (anything ffmpeg reads)")
+
+    styles = commands.add_parser(
         "styles",
-        help="list the style presets",
-        epilog="examples:\n  captioner styles\n  captioner caption demo.mp4 --style capitals",
+        help="list the style presets, or print one preset's whole YAML to copy and edit",
+        epilog=(
+            "examples:\n  captioner styles\n  captioner styles capitals > house.yaml\n"
+            "  captioner caption demo.mp4 --style house.yaml"
+        ),
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
+    styles.add_argument("name", nargs="?", metavar="NAME", help="a preset to print in full")
 
     evaluate = commands.add_parser(
         "evaluate",
-        help="measure caption quality (or, with --scores, classifier separability) against your own annotations",
+        help="measure caption quality (or, with --scores, classifier separability) against your own "
+        "annotations",
         formatter_class=argparse.RawDescriptionHelpFormatter,
         description=(
-            "A cue matches a truth event when its text holds one of the concept's keywords (whole word, any case)\n"
-            "and its span overlaps the event widened by the collar on both sides. Precision counts cues, recall\n"
-            "counts events. False alarms are cues in annotated clips with no truth events, per minute of them."
+            "A cue matches a truth event when its text holds one of the concept's keywords (whole\n"
+            "word, any case) and its span overlaps the event widened by the collar on both sides.\n"
+            "Precision counts cues, recall counts events. False alarms are cues in annotated clips\n"
+            "with no truth events, per minute of them."
         ),
         epilog=(
             "examples:\n"
             "  captioner evaluate truth.csv captions/                     # concepts.yaml beside truth.csv\n"
-            "  captioner evaluate truth.csv captions/ --dialogue dialogue.csv --durations files.csv --json report.json\n"
-            "  captioner evaluate truth.csv captions/ --scores            # needs NAME.sounds.json sidecars (--events-json)"
+            "  captioner evaluate truth.csv captions/ --dialogue dialogue.csv --durations files.csv \\\n"
+            "      --json report.json\n"
+            "  captioner evaluate truth.csv captions/ --scores   # needs NAME.sounds.json (--events-json)"
         ),
     )
     evaluate.add_argument(
@@ -269,7 +369,8 @@ def build_parser() -> argparse.ArgumentParser:
         "captions",
         type=Path,
         metavar="CAPTIONS_DIR",
-        help="folder with NAME.vtt/.srt or NAME.sounds.vtt/.srt (and NAME.json or NAME.sounds.json sidecars) per annotated clip",
+        help="folder with NAME.vtt/.srt or NAME.sounds.vtt/.srt (and NAME.json or NAME.sounds.json "
+        "sidecars) per annotated clip",
     )
     evaluate.add_argument(
         "--concepts",
@@ -314,3 +415,22 @@ def build_parser() -> argparse.ArgumentParser:
     )
     evaluate.add_argument("--force", action="store_true", help="replace an existing --json file")
     return parser
+
+
+def _stream_options(command: argparse.ArgumentParser) -> None:
+    """--audio-stream and --dialogue-language, shared by `caption` and `batch`."""
+    command.add_argument(
+        "--audio-stream",
+        default=None,
+        metavar="N|LANG|WORDS",
+        help="which audio stream to caption: its number (0 = first), its language (en, eng, fre), "
+        "or words of "
+        "its title (see `captioner streams FILE`; default: the file's default stream)",
+    )
+    command.add_argument(
+        "--dialogue-language",
+        default=None,
+        metavar="LANG",
+        help="language of the dialogue subtitles to use when several sit beside a video (NAME.en.srt, "
+        "NAME.fr.vtt) or are embedded in it (default: untagged or default ones first)",
+    )

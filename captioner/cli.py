@@ -71,7 +71,7 @@ def _notices(quiet: bool) -> Callable[[str], None]:
 
 
 def _caption(args: argparse.Namespace) -> int:
-    from . import ownership, packs, pipeline, update
+    from . import media, ownership, packs, pipeline, update
     from .formats import merged_track_path, sound_track_path
     from .formats.merge import merge_table
     from .formats.subtitles import dialogue_spans, read_track
@@ -105,6 +105,7 @@ def _caption(args: argparse.Namespace) -> int:
     merge_edited = merging and _changed(edited_sounds)
     dialogue = dialogue_spans(track.cues) if track is not None else None
     say = _notices(args.quiet)
+    media.probe(args.input)  # a mistyped or unreadable input fails before any model download
     pack = packs.load_pack(args.model or packs.DEFAULT_PACK, cache=packs.cache_root(), say=say)
     with progress_bar(enabled=not args.quiet, label=args.input.name) as bar:
         result = pipeline.caption_file(
@@ -113,6 +114,7 @@ def _caption(args: argparse.Namespace) -> int:
             style,
             audio_stream=args.audio_stream,
             dialogue=dialogue,
+            dialogue_language=args.dialogue_language,
             dialogue_source=args.dialogue.name if args.dialogue else "classifier",
             on_start=bar.start,
             on_progress=bar.advance,
@@ -148,13 +150,16 @@ def _caption(args: argparse.Namespace) -> int:
         print(explain_table(result), file=sys.stderr)
         if merged is not None:
             print(merge_table(merged), file=sys.stderr)
+    if result.empty_stream_notice():
+        say(result.empty_stream_notice())
     if keep_merged:
         say(f"kept {output} as you left it; the new merge is in {target}")
     elif output is not None and not updating:
         counted = (
             f"{len(result.cues)} cue(s)"
             if merged is None
-            else f"{len(merged.cues)} cue(s), {sum(c.dialogue is not None for c in merged.cues)} of them dialogue,"
+            else f"{len(merged.cues)} cue(s), {sum(c.dialogue is not None for c in merged.cues)} of them "
+            "dialogue,"
         )
         say(f"{counted} written to {output}")
     return EXIT_OK
@@ -201,7 +206,10 @@ def _merge(args: argparse.Namespace) -> int:
     dialogue = read_track(args.dialogue_subs)
     _, output = _merged_target(args.output, None, dialogue, args.dialogue_subs, None)
     _refuse_overwrite((output, args.events_json), (args.sound_cues, args.dialogue_subs), force=args.force)
-    note = f"Dialogue of {args.dialogue_subs.name} with the sound captions of {args.sound_cues.name}\nmerged by captioner {__version__}, style {style.name}; review before publishing"
+    note = (
+        f"Dialogue of {args.dialogue_subs.name} with the sound captions of {args.sound_cues.name}\nmerged "
+        f"by captioner {__version__}, style {style.name}; review before publishing"
+    )
     merged, text = pipeline.merge_text(
         dialogue, sound_cues_from_track(read_track(args.sound_cues)), style, note
     )
@@ -225,7 +233,8 @@ def _merge(args: argparse.Namespace) -> int:
     if output is not None and not args.quiet:
         dropped = sum(o.action == "dropped" for o in merged.outcomes)
         print(
-            f"captioner: {len(merged.cues)} cue(s) written to {output}; {dropped} sound cue(s) left out (see --explain)",
+            f"captioner: {len(merged.cues)} cue(s) written to {output}; {dropped} sound cue(s) left out "
+            "(see --explain)",
             file=sys.stderr,
         )
     return EXIT_OK
@@ -242,7 +251,8 @@ def _merged_target(
         raise SubtitleError(
             dialogue_path,
             f"is {dialogue.format.upper()} but the merged track would be {wanted.upper()}",
-            f"write a .{dialogue.format} file: dialogue cues are carried over exactly, so the formats must match",
+            f"write a .{dialogue.format} file: dialogue cues are carried over exactly, so the formats must "
+            "match",
         )
     return wanted, path
 
@@ -281,7 +291,8 @@ def _refuse_overwrite(
             raise OutputError(
                 target,
                 "already exists and is not what captioner wrote into it (it may hold hand edits)",
-                f"pass {update}--force to replace it (the old file is kept as a backup), or choose another path",
+                f"pass {update}--force to replace it (the old file is kept as a backup), or choose another "
+                "path",
             )
 
 
@@ -291,6 +302,12 @@ def _output_target(args: argparse.Namespace) -> tuple[str, Path | None]:
     if args.output:
         output = Path(args.output)
         suffix = output.suffix.lower().lstrip(".")
+        if args.format and suffix in ("vtt", "srt") and suffix != args.format:
+            raise OutputError(
+                output,
+                f"is named .{suffix} but --format {args.format} was asked for",
+                f"name the file .{args.format}, or leave out --format to follow the extension",
+            )
         return args.format or (suffix if suffix in ("vtt", "srt") else "vtt"), output
     fmt = args.format or "vtt"
     from .formats import sound_track_path
@@ -316,6 +333,8 @@ def _batch(args: argparse.Namespace) -> int:
         workers=args.workers or os.cpu_count() or 1,
         cluster=args.cluster,
         retry_failed=args.retry_failed,
+        audio_stream=args.audio_stream,
+        dialogue_language=args.dialogue_language,
     )
     say = _notices(args.quiet)
     summary = library.run_batch(
@@ -346,6 +365,58 @@ def _models(args: argparse.Namespace) -> int:
         manifest = packs.read_manifest(name, cache)
         state = "installed" if packs.is_installed(manifest) else "not installed (captioner models install)"
         print(f"{name:<14} {state:<12}  {manifest.root}")
+    return EXIT_OK
+
+
+def _teach(args: argparse.Namespace) -> int:
+    from . import packs
+    from .fitting import report_table, train_heads
+    from .formats import write_atomic
+    from .heads import save_heads
+    from .style import load_style
+    from .teach import TeachError, build_training_set, check_clips, read_folder, read_label_csv
+
+    head_path: Path = args.output
+    manifest_path = head_path.with_name(
+        head_path.name.removesuffix(".npz").removesuffix(".heads") + ".pack.yaml"
+    )
+    for target in (head_path, manifest_path):
+        if target.exists() and not args.force:
+            raise OutputError(target, "already exists", "pass --force to replace it, or choose another -o")
+    if args.folds < 2:
+        raise TeachError(f"--folds {args.folds}", "needs at least 2 folds", "pass --folds 5")
+    source: Path = args.source
+    if not source.exists():
+        raise TeachError(source, "not found", "pass a folder of clips or a CSV of labels")
+    clips = read_label_csv(source) if source.is_file() else read_folder(source)
+    say = _notices(args.quiet)
+    pack = packs.load_pack(args.model or packs.DEFAULT_PACK, cache=packs.cache_root(), say=say)
+    concepts = check_clips(clips, pack.vocabulary.concepts(), source)
+    detection = load_style("brackets").detection
+    data = build_training_set(
+        clips,
+        concepts,
+        pack,
+        hop_ms=detection.patch_hop_ms,
+        level_spread_db=detection.level_spread_db,
+        say=say,
+    )
+    heads, reports = train_heads(
+        data, folds=args.folds, info={"source": source.name, "clips": len(clips)}, say=say
+    )
+    print(report_table(reports))
+    temporary = head_path.with_name(f".{head_path.name}.tmp")
+    save_heads(temporary, heads)
+    digest = packs.sha256_of(temporary.read_bytes())
+    os.replace(temporary, head_path)
+    base = pack.manifest.name if args.model is None or args.model in packs.builtin_packs() else args.model
+    manifest = (
+        f"# Written by captioner teach: the {base} pack plus heads for {', '.join(concepts)}.\n"
+        f"name: {manifest_path.name.removesuffix('.pack.yaml')}\nextends: {base}\n"
+        f"heads:\n  - file: {head_path.name}\n    sha256: {digest}\n"
+    )
+    write_atomic(manifest_path, manifest, force=True)
+    say(f"wrote {head_path} and {manifest_path}; use it with --model {manifest_path}")
     return EXIT_OK
 
 
@@ -391,6 +462,8 @@ def _evaluate(args: argparse.Namespace) -> int:
 
 
 def _review(args: argparse.Namespace) -> int:
+    if args.serve:
+        return _review_served(args)
     from .formats import sound_track_path, write_atomic
     from .review import build_page, default_captions
 
@@ -401,22 +474,107 @@ def _review(args: argparse.Namespace) -> int:
         args.events_json or sound_track_path(args.input, "json"),
     )
     _refuse_overwrite((args.output,), inputs, force=args.force)
+    print(f"captioner: reading the waveform of {args.input.name}", file=sys.stderr)
     write_atomic(
         args.output,
         build_page(args.input, args.output, captions=args.captions, sidecar=args.events_json),
         force=args.force,
     )
     print(
-        f"captioner: review page written to {args.output}; open it in a browser (it needs {args.input.name} at the same relative path)",
+        f"captioner: review page written to {args.output}; open it in a browser (it needs {args.input.name} "
+        "at the same relative path)",
         file=sys.stderr,
     )
     return EXIT_OK
 
 
-def _styles(_args: argparse.Namespace) -> int:
+def _review_served(args: argparse.Namespace) -> int:
+    import webbrowser
+
+    from .review import load_inputs, waveform
+    from .review_server import start_server
+
+    load_inputs(args.input, args.captions, args.events_json)  # unreadable inputs fail before any decoding
+    print(f"captioner: reading the waveform of {args.input.name}", file=sys.stderr)
+    try:
+        server = start_server(
+            args.input,
+            captions=args.captions,
+            sidecar=args.events_json,
+            waveform=waveform(args.input),
+            port=args.port,
+        )
+    except OSError as exc:
+        raise OutputError(
+            f"port {args.port}",
+            f"cannot listen on it ({exc.strerror})",
+            "leave out --port to take a free one",
+        ) from exc
+    with server:
+        track = server.site.inputs.captions_path
+        print(f"captioner: reviewing {track} at {server.url}", flush=True)
+        print("captioner: saving in the page writes that file; press Ctrl-C here to stop", file=sys.stderr)
+        if not args.no_browser:
+            webbrowser.open(server.url)
+        try:
+            server.serve_forever()
+        except KeyboardInterrupt:
+            print("captioner: review server stopped", file=sys.stderr)
+    return EXIT_OK
+
+
+def _check(args: argparse.Namespace) -> int:
+    from .qc import check_track, report_json, report_lines
+    from .style import load_style
+
+    report = check_track(args.track, load_style(args.style))
+    if args.json:
+        print(json.dumps(report_json(report), indent=1))
+    else:
+        print("\n".join(report_lines(report)))
+    return EXIT_OK if report.ok else EXIT_SOME_FAILED
+
+
+def _deliver(args: argparse.Namespace) -> int:
+    from .formats import write_atomic
+    from .formats.delivery import delivery_text
+    from .formats.subtitles import read_track, subtitle_format
+
+    track = read_track(args.track)
+    if subtitle_format(args.output) != track.format:
+        raise OutputError(
+            args.output,
+            f"is not a .{track.format} file like {args.track.name}",
+            f"name a .{track.format} output",
+        )
+    # The working file is an input: it keeps its NOTE heading and edit record for --update.
+    _refuse_overwrite((args.output,), (args.track,), force=args.force)
+    write_atomic(args.output, delivery_text(track), force=args.force)
+    print(
+        f"captioner: {len(track.cues)} cue(s) written to {args.output} without NOTE blocks", file=sys.stderr
+    )
+    return EXIT_OK
+
+
+def _streams(args: argparse.Namespace) -> int:
+    from .probing import probe
+    from .report import streams_table
+
+    print(streams_table(probe(args.input)))
+    return EXIT_OK
+
+
+def _styles(args: argparse.Namespace) -> int:
+    from .errors import StyleError
     from .style import builtin_styles, load_style
 
-    for name, path in sorted(builtin_styles().items()):
+    presets = builtin_styles()
+    if args.name:
+        if args.name not in presets:
+            raise StyleError(args.name, "no such preset", f"use one of {', '.join(sorted(presets))}")
+        sys.stdout.write(presets[args.name].read_text(encoding="utf-8"))
+        return EXIT_OK
+    for name, path in sorted(presets.items()):
         style = load_style(str(path))
         print(f"{name:<10} {style.description}")
     return EXIT_OK
@@ -431,6 +589,10 @@ _RUNNERS: dict[str, Callable[[argparse.Namespace], int]] = {
     "evaluate": _evaluate,
     "models": _models,
     "styles": _styles,
+    "teach": _teach,
+    "check": _check,
+    "deliver": _deliver,
+    "streams": _streams,
 }
 
 

@@ -49,8 +49,37 @@ def event_text(event: SoundEvent, wording: Wording) -> str:
 
 
 def end_text(event: SoundEvent, wording: Wording) -> str:
-    """Text for the end of a lasting sound, e.g. "[rain falling stops]"."""
-    return word(f"{event.phrase} stops", wording, music=event.kind is Kind.MUSIC)
+    """Text for the end of a lasting sound, by the sound's noun: "[rain stops]", "[music stops]".
+
+    The end of music is a description, not music, so it is never set between notes.
+
+    >>> from captioner.vocabulary import Kind
+    >>> rain = SoundEvent(
+    ...     "e1", "rain", "Rain", "rain falling", "rain falls", Kind.AMBIENCE, 2, None,
+    ...     0, 1, 0.8, 0.6, -20.0, -30.0,
+    ... )
+    >>> end_text(rain, Wording()), end_text(rain, Wording(case="upper", brackets=False))
+    ('[rain stops]', 'RAIN STOPS')
+    """
+    noun = event.noun or ("music" if event.kind is Kind.MUSIC else noun_of(event.phrase))
+    return word(f"{noun} {'stop' if _plural(noun) else 'stops'}", wording)
+
+
+def noun_of(phrase: str) -> str:
+    """The sound's name in an -ing phrase: the words before its first -ing verb.
+
+    >>> noun_of("rain falling"), noun_of("water running into sink"), noun_of("snoring")
+    ('rain', 'water', 'snoring')
+    """
+    words = phrase.split()
+    verb = next((i for i, w in enumerate(words) if i > 0 and w.endswith("ing")), len(words))
+    return " ".join(words[:verb])
+
+
+def _plural(noun: str) -> bool:
+    """Whether a noun takes "stop" rather than "stops" ("footsteps", not "bus" or "glass")."""
+    last = noun.split()[-1] if noun.split() else ""
+    return last.endswith("s") and not last.endswith(("ss", "us", "is"))
 
 
 def wrap(text: str, layout: Layout) -> tuple[str, ...]:
@@ -90,7 +119,7 @@ def build_cues(
                 _timed(event.end_ms, event.end_ms, end_lines, (event.event_id + "-end",), layout, duration_ms)
             )
     drafts.sort(key=lambda c: (c.start_ms, c.end_ms))
-    return _resolve(drafts, layout)
+    return _resolve(drafts, layout, duration_ms)
 
 
 def _timed(
@@ -103,7 +132,9 @@ def _timed(
     return Cue(start_ms, max(end, start_ms + 1), lines, ids)
 
 
-def _resolve(drafts: list[Cue], layout: Layout) -> tuple[tuple[Cue, ...], tuple[Decision, ...]]:
+def _resolve(
+    drafts: list[Cue], layout: Layout, duration_ms: int
+) -> tuple[tuple[Cue, ...], tuple[Decision, ...]]:
     """Make cues that overlap share the screen; a text never appears more than
     sync_tolerance_ms before its sound.
 
@@ -113,8 +144,13 @@ def _resolve(drafts: list[Cue], layout: Layout) -> tuple[tuple[Cue, ...], tuple[
     2. The earlier cue ends where the new one starts, when it has already been on screen
        for min_duration_ms (the new sound is news; the old caption has been read).
     3. The new cue waits until the earlier one ends, when that stays within sync_tolerance_ms.
-    4. Both texts show together from the new sound's onset, when the lines fit.
-    5. Otherwise the new cue is dropped, with a `layout` decision for its events.
+    4. The earlier cue ends where the new one starts, when it has been on screen for its
+       reading time: a continuing sound is not captioned again beside the new one (DCMP).
+    5. Both texts show together once the earlier cue has had its minimum time, when the
+       lines fit (the new text comes a little late rather than the earlier one too briefly).
+    6. Otherwise the new cue is dropped, with a `layout` decision for its events.
+    A line the earlier cue already shows is never repeated in the one it shares.
+    Then `_settle` fixes gaps and the media's end.
     """
     cues: list[Cue] = []
     dropped: list[Decision] = []
@@ -123,11 +159,12 @@ def _resolve(drafts: list[Cue], layout: Layout) -> tuple[tuple[Cue, ...], tuple[
             cues.append(cue)
             continue
         previous = cues[-1]
-        fits = len(previous.lines) + len(cue.lines) <= layout.max_lines
+        news = tuple(line for line in cue.lines if line not in previous.lines)  # one line per sound
+        fits = len(previous.lines) + len(news) <= layout.max_lines
         both = Cue(
             cue.start_ms,
             min(max(previous.end_ms, cue.end_ms), cue.start_ms + layout.max_duration_ms),
-            previous.lines + cue.lines,
+            previous.lines + news,
             previous.event_ids + cue.event_ids,
         )
         if fits and cue.start_ms - previous.start_ms <= layout.sync_tolerance_ms:
@@ -145,16 +182,27 @@ def _resolve(drafts: list[Cue], layout: Layout) -> tuple[tuple[Cue, ...], tuple[
                     end_ms=max(cue.end_ms, cue.start_ms + shift + layout.min_duration_ms),
                 )
             )
+        elif cue.start_ms - previous.start_ms >= reading_ms(previous.lines, layout):
+            cues[-1] = replace(previous, end_ms=cue.start_ms)
+            cues.append(cue)
         elif fits:
             # The continuation is named after the sound that starts it: the earlier cue keeps its id.
-            cues[-1] = replace(previous, end_ms=cue.start_ms)
-            cues.append(replace(both, event_ids=cue.event_ids + previous.event_ids))
+            start = previous.start_ms + layout.min_duration_ms
+            cues[-1] = replace(previous, end_ms=start)
+            end = min(max(both.end_ms, start + layout.min_duration_ms), start + layout.max_duration_ms)
+            cues.append(
+                replace(both, start_ms=start, end_ms=end, event_ids=cue.event_ids + previous.event_ids)
+            )
         else:
-            for event_id in (i for i in cue.event_ids if not i.endswith("-end")):
-                dropped.append(
-                    Decision(event_id, False, "layout", "no room on screen beside an earlier caption")
-                )
-    return tuple(unique_ids(_apply_gaps(cues, layout))), tuple(dropped)
+            dropped.extend(_no_room(cue, "no room on screen beside an earlier caption"))
+    settled, late = _settle(cues, layout, duration_ms)
+    for cue in late:
+        dropped.extend(_no_room(cue, "no room for its minimum time before the media ends"))
+    return tuple(unique_ids(settled)), tuple(dropped)
+
+
+def _no_room(cue: Cue, why: str) -> list[Decision]:
+    return [Decision(i, False, "layout", why) for i in cue.event_ids if not i.endswith("-end")]
 
 
 def unique_ids(cues: list[Cue]) -> list[Cue]:
@@ -176,8 +224,8 @@ def unique_identifier(identifier: str, taken: set[str]) -> str:
     identifiers goes through here, so one file never mixes suffix schemes.
 
     >>> taken = {"e0001"}
-    >>> unique_identifier("e0001", taken), unique_identifier("e0001", taken), unique_identifier("e0002", taken)
-    ('e0001-2', 'e0001-3', 'e0002')
+    >>> [unique_identifier(name, taken) for name in ("e0001", "e0001", "e0002")]
+    ['e0001-2', 'e0001-3', 'e0002']
     """
     name, number = identifier, 1
     while name in taken:
@@ -187,17 +235,38 @@ def unique_identifier(identifier: str, taken: set[str]) -> str:
     return name
 
 
-def _apply_gaps(cues: list[Cue], layout: Layout) -> list[Cue]:
-    """Close gaps shorter than min_gap_ms by extending the earlier cue, or widen them."""
-    result = list(cues)
-    for i in range(len(result) - 1):
-        current, following = result[i], result[i + 1]
-        gap = following.start_ms - current.end_ms
-        if 0 < gap < layout.min_gap_ms:
-            if following.start_ms - current.start_ms <= layout.max_duration_ms:
-                result[i] = replace(current, end_ms=following.start_ms)
-            else:
-                result[i] = replace(
-                    current, end_ms=max(current.start_ms + 1, following.start_ms - layout.min_gap_ms)
-                )
-    return result
+def _settle(cues: list[Cue], layout: Layout, duration_ms: int) -> tuple[list[Cue], list[Cue]]:
+    """Last pass, in time order: no overlap; a gap of 0 or at least min_gap_ms (closed by
+    extending the earlier cue where it stays within max_duration_ms, else widened by
+    starting the later one later); min..max_duration_ms on screen; nothing past the media's
+    end (a cue near the end starts earlier instead). Media shorter than min_duration_ms gets
+    cues that end with it. Returns the cues and those with no room left before the end.
+    """
+    placed: list[Cue] = []
+    late: list[Cue] = []
+    short_media = duration_ms < layout.min_duration_ms
+    for cue in cues:
+        start, floor = cue.start_ms, 0
+        if placed:
+            previous = placed[-1]
+            floor = previous.end_ms
+            start = max(start, floor)
+            if 0 < start - floor < layout.min_gap_ms:
+                if start - previous.start_ms <= layout.max_duration_ms:
+                    placed[-1] = replace(previous, end_ms=start)
+                    floor = start
+                else:
+                    start = floor + layout.min_gap_ms
+        end = min(max(cue.end_ms, start + layout.min_duration_ms), start + layout.max_duration_ms)
+        if duration_ms > 0 and end > duration_ms:
+            end = duration_ms
+            start = max(min(start, end - layout.min_duration_ms), floor)
+            if 0 < start - floor < layout.min_gap_ms:
+                start = floor
+        if end - start < layout.min_duration_ms and not (
+            short_media and end == duration_ms and start == floor < end
+        ):
+            late.append(cue)
+            continue
+        placed.append(replace(cue, start_ms=start, end_ms=max(end, start + 1)))
+    return placed, late

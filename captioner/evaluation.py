@@ -82,7 +82,8 @@ class QualityReport:
 def keyword_pattern(keywords: Sequence[str]) -> re.Pattern[str]:
     """One case-insensitive whole-word pattern for a concept's keywords.
 
-    >>> bool(keyword_pattern(["door"]).search("[Door slams]")), bool(keyword_pattern(["door"]).search("[doorbell]"))
+    >>> door = keyword_pattern(["door"])
+    >>> bool(door.search("[Door slams]")), bool(door.search("[doorbell]"))
     (True, False)
     """
     alternatives = [
@@ -137,8 +138,9 @@ def caption_quality(
 
     `cues` holds one entry per annotated file (an empty tuple for an empty caption track);
     `formats` says how each file's cue text is written (default "vtt": WebVTT markup and
-    character references); `keywords` maps every concept to its caption keywords. Files with no events count as
-    truth-free audio when `durations_ms` knows their length (a warning names those it doesn't).
+    character references); `keywords` maps every concept to its caption keywords. Files with
+    no events count as truth-free audio when `durations_ms` knows their length (a warning
+    names those it doesn't).
     """
     if collar_ms < 0:
         raise ValueError(f"collar_ms={collar_ms} must be >= 0")
@@ -193,7 +195,8 @@ def caption_quality(
             total["unnamed"] += not named
     if unknown_length:
         warnings.warn(
-            f"{len(unknown_length)} file(s) without truth events and without a known duration ({', '.join(unknown_length[:3])}) left out of the false-alarm rate; pass --durations",
+            f"{len(unknown_length)} file(s) without truth events and without a known duration "
+            f"({', '.join(unknown_length[:3])}) left out of the false-alarm rate; pass --durations",
             stacklevel=2,
         )
 
@@ -331,7 +334,8 @@ def quality_table(report: QualityReport) -> str:
     lines.insert(len(lines) - 1, "-" * len(lines[0]))
     minutes = report.truth_free_ms / 60000
     lines.append(
-        f"{report.files} file(s), collar {report.collar_ms / 1000:g} s; truth-free audio {minutes:.2f} min in {report.truth_free_files} file(s); "
+        f"{report.files} file(s), collar {report.collar_ms / 1000:g} s; truth-free audio {minutes:.2f} min "
+        f"in {report.truth_free_files} file(s); "
         f"{report.unnamed_cues} cue(s) name no concept"
     )
     return "\n".join(lines)

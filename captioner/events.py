@@ -46,6 +46,8 @@ class SoundEvent:
     parent_wording: (
         tuple[str, str] | tuple[()]
     ) = ()  # the parent concept's (phrase, phrase_present), for sounds too close to tell apart
+    noun: str = ""  # the sound as a noun, for its end cue ("rain"); "" = derived from the phrase
+    same_sound: tuple[str, ...] = ()  # concepts that name this sound in other words
 
     @property
     def duration_ms(self) -> int:
@@ -116,13 +118,22 @@ def bridge(curve: np.ndarray, patches: int) -> np.ndarray:
 def concept_curves(
     track: ScoreTrack, vocabulary: Vocabulary
 ) -> dict[str, tuple[np.ndarray, tuple[ClassEntry, ...]]]:
-    """Concept -> (max score over its classes per patch, its classes), captioned kinds only."""
+    """Concept -> (its score per patch, its classes), captioned kinds only.
+
+    This is the one place that decides where a concept's curve comes from: its learned head
+    where the track has one, else the highest of its classifier classes.
+    """
+    heads = {concept: column for column, concept in enumerate(track.head_concepts)}
     curves = {}
     for concept, entries in vocabulary.concepts().items():
         if entries[0].kind in _NEVER_CAPTIONED:
             continue
-        columns = [e.index for e in entries]
-        curves[concept] = (track.scores[:, columns].max(axis=1), entries)
+        if concept in heads:
+            curves[concept] = (track.head_scores[:, heads[concept]], entries)
+            continue
+        columns = [e.index for e in entries if e.index >= 0]
+        if columns:
+            curves[concept] = (track.scores[:, columns].max(axis=1), entries)
     return curves
 
 
@@ -172,14 +183,13 @@ def detect_events(track: ScoreTrack, vocabulary: Vocabulary, settings: Detection
                 or smooth[r[0] : r[1]].max() >= settings.lasting_sure_score
             ]
         spans = _merge_runs([_run_to_ms(track, run) for run in runs], settings.merge_gap_ms)
-        columns = [e.index for e in entries]
+        classed = [e for e in entries if e.index >= 0]
         for start_ms, end_ms, first, last in spans:
             if end_ms - start_ms < settings.min_event_ms:
                 continue
             if settings.onset_refine:
                 start_ms = refine_onset(track, start_ms, first, end_ms)
-            window = track.scores[first:last, columns]
-            best = entries[int(np.argmax(window.sum(axis=0)))]
+            best = _best_entry(track, classed, first, last) if classed else entries[0]
             level, background, floor = _levels(track, int(track.patch_start_ms(first)), end_ms)
             found.append(
                 SoundEvent(
@@ -201,10 +211,18 @@ def detect_events(track: ScoreTrack, vocabulary: Vocabulary, settings: Detection
                     generic=best.generic,
                     parent_wording=_wording(by_concept.get(best.parent or "", ())),
                     floor_db=floor,
+                    noun=best.noun,
+                    same_sound=best.same_sound,
                 )
             )
     found.sort(key=lambda e: (e.start_ms, -e.priority, e.concept))
     return [replace(e, event_id=f"e{number:04d}") for number, e in enumerate(found, start=1)]
+
+
+def _best_entry(track: ScoreTrack, entries: list[ClassEntry], first: int, last: int) -> ClassEntry:
+    """The class that scored highest over the event: it chooses the wording."""
+    window = track.scores[first:last, [e.index for e in entries]]
+    return entries[int(np.argmax(window.sum(axis=0)))]
 
 
 def _wording(entries: tuple[ClassEntry, ...]) -> tuple[str, str] | tuple[()]:
@@ -246,7 +264,8 @@ def _frames(track: ScoreTrack, start_ms: float, end_ms: float) -> np.ndarray:
 
 
 def _levels(track: ScoreTrack, start_ms: int, end_ms: int) -> tuple[float, float, float]:
-    """(level, background, floor) in dBFS: 90th percentile inside, median and FLOOR_PERCENTILE within 5 s around."""
+    """(level, background, floor) in dBFS: the 90th percentile inside, and the median and
+    FLOOR_PERCENTILE of the frames within 5 s around."""
     inside = _frames(track, start_ms, end_ms)
     around = np.concatenate(
         [_frames(track, start_ms - 5000, start_ms), _frames(track, end_ms, end_ms + 5000)]

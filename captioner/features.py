@@ -33,7 +33,8 @@ class Frontend:
             raise ValueError("hop_length, n_mels and patch_frames must be > 0")
         if not 0 <= self.fmin_hz < self.fmax_hz <= self.sample_rate / 2:
             raise ValueError(
-                f"fmin_hz={self.fmin_hz}, fmax_hz={self.fmax_hz} must satisfy 0 <= fmin < fmax <= sample_rate/2"
+                f"fmin_hz={self.fmin_hz}, fmax_hz={self.fmax_hz} must satisfy 0 <= fmin < fmax <= "
+                "sample_rate/2"
             )
 
     @property

@@ -7,7 +7,8 @@ access to the media by the same path and nothing else.
 
 Outputs of a video `NAME.EXT` (beside it, or mirrored under the output folder):
 `NAME.sounds.vtt|srt` (the sound captions), `NAME.sounds.json` (events and decisions) and,
-when a dialogue subtitle `NAME.srt|vtt` sits beside the video, `NAME.merged.vtt|srt`.
+when a dialogue subtitle `NAME.srt|vtt` (or `NAME.LANG.srt|vtt`) sits beside the video,
+`NAME.merged.vtt|srt`.
 An output that differs from what the manifest says we wrote (and is not provably ours,
 see `captioner.ownership`) was edited by a person: it is left alone and the new draft is
 written beside it as `NAME.sounds.draft.vtt` (`ownership.draft_path`). A merged track is
@@ -27,6 +28,7 @@ from pathlib import Path
 from typing import Any
 
 from . import ownership, packs, pipeline
+from .dialogue_sources import choose_beside
 from .errors import CaptionerError, MediaError, OutputError
 from .formats import Format, write_together
 from .manifest import (
@@ -69,7 +71,6 @@ MEDIA_EXTENSIONS = frozenset(
         *(".wav", ".mp3", ".m4a", ".aac", ".flac", ".ogg", ".oga", ".opus", ".wma", ".aif", ".aiff"),
     }
 )
-DIALOGUE_EXTENSIONS = (".vtt", ".srt")
 _MERGED_FROM = "#merged-from"  # manifest key suffix: hash of the edited sound track a merge used
 _OUTPUT_LAYOUT = 2  # bump when output names or contents change for the same settings
 
@@ -85,11 +86,15 @@ class MediaFile:
     relative: str  # '/' separated, relative to the library folder
     outputs: dict[str, Path]  # kind -> output path ("caption", "events", maybe "merged")
     dialogue: Path | None  # subtitle sidecar found beside it
+    dialogue_notice: str = ""  # how the sidecar was picked among several
 
 
-def find_media(folder: Path, *, output_dir: Path | None = None, fmt: Format = "vtt") -> list[MediaFile]:
+def find_media(
+    folder: Path, *, output_dir: Path | None = None, fmt: Format = "vtt", dialogue_language: str | None = None
+) -> list[MediaFile]:
     """Media files under `folder` by extension (any case), skipping hidden files and folders
-    and the output folder; sorted by relative path.
+    and the output folder; sorted by relative path. `dialogue_language` picks among
+    language-tagged subtitles beside a video.
 
     Raises:
         MediaError: `folder` is not a folder.
@@ -105,7 +110,6 @@ def find_media(folder: Path, *, output_dir: Path | None = None, fmt: Format = "v
         media = sorted(
             n for n in filenames if not n.startswith(".") and Path(n).suffix.lower() in MEDIA_EXTENSIONS
         )
-        by_lower = {n.lower(): n for n in filenames}
         stems = [Path(n).stem.lower() for n in media]
         ours = {
             f"{s}{tail}"
@@ -116,20 +120,20 @@ def find_media(folder: Path, *, output_dir: Path | None = None, fmt: Format = "v
             stem = Path(name).stem
             # Two videos with one stem (a.mp4, a.mkv) would share outputs: name those in full.
             label = name if stems.count(stem.lower()) > 1 else stem
-            dialogue = next(
-                (
-                    base / by_lower[k]
-                    for k in (stem.lower() + e for e in DIALOGUE_EXTENSIONS)
-                    if k in by_lower and k not in ours and not ownership.KEPT_NAME.search(k)
-                ),
-                None,
+            # Another video's own subtitles (b.en.srt beside b.en.mp4) are not this one's.
+            others = {f"{o}{e}" for o in stems if o != stem.lower() for e in (".srt", ".vtt")}
+            # Our drafts and backups (a.sounds.draft.vtt) are never anyone's dialogue either.
+            kept = {n.lower() for n in filenames if ownership.KEPT_NAME.search(n)}
+            choice = choose_beside(
+                base / name, filenames, stem, language=dialogue_language, taken=ours | others | kept
             )
+            dialogue = choice.path
             relative = (base / name).relative_to(folder)
             target = (skip / relative.parent) if skip else base
             outputs = {"caption": target / f"{label}.sounds.{fmt}", "events": target / f"{label}.sounds.json"}
             if dialogue is not None:
                 outputs["merged"] = target / f"{label}.merged{dialogue.suffix.lower()}"
-            found.append(MediaFile(base / name, relative.as_posix(), outputs, dialogue))
+            found.append(MediaFile(base / name, relative.as_posix(), outputs, dialogue, choice.notice))
     return found
 
 
@@ -149,6 +153,8 @@ class BatchOptions:
     workers: int = 1
     cluster: str | None = None
     retry_failed: bool = False
+    audio_stream: str | None = None  # index, language or title words, for every file
+    dialogue_language: str | None = None
 
 
 @dataclass(frozen=True, slots=True)
@@ -180,7 +186,15 @@ def run_batch(
     """
     began = time.perf_counter()
     root = (options.output_dir or options.folder).absolute()
-    items = find_media(options.folder, output_dir=options.output_dir, fmt=options.fmt)
+    items = find_media(
+        options.folder,
+        output_dir=options.output_dir,
+        fmt=options.fmt,
+        dialogue_language=options.dialogue_language,
+    )
+    for item in items:
+        if item.dialogue_notice:
+            say(item.dialogue_notice)
     try:
         root.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
@@ -195,6 +209,10 @@ def run_batch(
         "format": options.fmt,
         "layout": _OUTPUT_LAYOUT,
     }
+    # Only when set, so that runs without them keep their earlier settings digest.
+    for key in ("audio_stream", "dialogue_language"):
+        if getattr(options, key) is not None:
+            base[key] = getattr(options, key)
     with RunManifest(root / MANIFEST_NAME) as manifest:
         run_id = manifest.start_run()
         records = manifest.records()
@@ -247,6 +265,8 @@ def run_batch(
                 for drafted in results:
                     task = jobs[drafted.relative]
                     _store(task, drafted, root, manifest, tally, options.style)
+                    if drafted.notice:
+                        bar.wrap(say)(drafted.notice)
                     if tally.last_error:
                         failures_now.append((task.item.relative, tally.last_error))
                         failed_line(tally.last_error)
@@ -295,7 +315,17 @@ def _settings(item: MediaFile, base: dict[str, Any], options: BatchOptions) -> S
 
 def _job(task: _Task, options: BatchOptions, pack: str, cache: str | None) -> Job:
     dialogue = str(task.item.dialogue) if task.item.dialogue else None
-    return Job(str(task.item.path), task.item.relative, options.style, options.fmt, pack, cache, dialogue)
+    return Job(
+        str(task.item.path),
+        task.item.relative,
+        options.style,
+        options.fmt,
+        pack,
+        cache,
+        dialogue,
+        options.audio_stream,
+        options.dialogue_language,
+    )
 
 
 def _ensure_installed(manifest: packs.PackManifest, say: Callable[[str], None]) -> None:
@@ -338,7 +368,10 @@ def _store(
     )
     error = drafted.error
     if not error and drafted.pack_version != task.settings.pack_version:
-        error = f"{task.item.path}: worker {drafted.worker} has model pack version {drafted.pack_version}, the run expects {task.settings.pack_version}; install the same pack on every worker"
+        error = (
+            f"{task.item.path}: worker {drafted.worker} has model pack version {drafted.pack_version}, the "
+            f"run expects {task.settings.pack_version}; install the same pack on every worker"
+        )
     recorded = {h for k, h in old_outputs.items() if not k.endswith(_MERGED_FROM)} | set(old_pending.values())
 
     def ours(path: Path) -> bool:

@@ -304,9 +304,11 @@ def summary_table(summary: Summary) -> str:
     )
     lines = [
         f"{'files':<8}{'done':>8}{'skipped':>9}{'failed':>8}{'total':>8}",
-        f"{'':<8}{summary.done:>8}{summary.skipped:>9}{summary.failed + summary.failed_before:>8}{summary.files:>8}",
+        f"{'':<8}{summary.done:>8}{summary.skipped:>9}"
+        f"{summary.failed + summary.failed_before:>8}{summary.files:>8}",
         (
-            f"media captioned: {summary.media_ms / 3_600_000:.2f} h ({_duration(summary.media_ms / 1000)}) in {_duration(summary.wall_s)} "
+            f"media captioned: {summary.media_ms / 3_600_000:.2f} h ({_duration(summary.media_ms / 1000)}) "
+            f"in {_duration(summary.wall_s)} "
             f"({summary.media_hours_per_hour:.1f} h of media per hour, {workers})"
         ),
         f"cues written: {summary.cues}"
@@ -314,16 +316,19 @@ def summary_table(summary: Summary) -> str:
     ]
     if summary.edited:
         lines.append(
-            f"kept {len(summary.edited)} hand-edited output(s) as you left them; the new draft is beside each as NAME.draft.EXT:"
+            f"kept {len(summary.edited)} hand-edited output(s) as you left them; the new draft is beside "
+            "each as NAME.draft.EXT:"
         )
         lines += [f"  {name}" for name in summary.edited]
     if summary.failed_before:
         lines.append(
-            f"{summary.failed_before} file(s) failed in an earlier run and were not retried (pass --retry-failed)"
+            f"{summary.failed_before} file(s) failed in an earlier run and were not retried (pass "
+            "--retry-failed)"
         )
     if not summary.ok:
         lines.append(
-            f"{summary.failed + summary.failed_before} of {summary.files} files failed; see the lines above and {summary.manifest}"
+            f"{summary.failed + summary.failed_before} of {summary.files} files failed; see the lines above "
+            f"and {summary.manifest}"
         )
     return "\n".join(lines)
 

@@ -1,132 +1,43 @@
-"""Media: probe a file and decode one audio stream to mono float32 in bounded chunks.
+"""Media: decode one audio stream to mono float32 on the player's clock, in bounded chunks.
 
 ffmpeg does the decoding in its own process; a reader thread keeps its pipe drained so
-decoding overlaps with classification. The ffmpeg binary is the system one when present,
-else the one shipped by the `imageio-ffmpeg` package (which has no ffprobe, so probing
-reads ffmpeg's own description of the input).
+decoding overlaps with classification. Probing (`captioner.probing`) reads ffmpeg's own
+description of the input, since the imageio-ffmpeg binary has no ffprobe.
+
+Time zero is the container's start, where a player's clock reads zero: ffmpeg measures
+every stream from it (honouring MP4 edit lists, Matroska/WebM codec delay and MPEG-TS start
+times, and correcting TS timestamp jumps), and `aresample` pads the leading gap (and any
+later gap) with silence, so sample n plays at n / rate seconds. For TS-like formats ffmpeg
+measures from the first stream in use, so the video is kept in use (copied to a null output).
 """
 
 from __future__ import annotations
 
+import io
 import queue
-import re
-import shutil
 import subprocess
 import tempfile
 import threading
 import warnings
-from collections.abc import Iterator
-from dataclasses import dataclass
+from collections.abc import Iterable, Iterator
 from pathlib import Path
 
-import ffmpeg
 import numpy as np
 
+from .channels import Fold, fold, mid_side_pan
 from .errors import MediaError
+from .probing import (
+    AudioStream,
+    MediaInfo,
+    SubtitleStream,
+    clock_keeper,
+    ffmpeg_executable,
+    input_url,
+    last_error_line,
+    probe,
+)
 
-_STREAM_LINE = re.compile(r"Stream #0:(\d+)[^:]*: Audio: (.*)")
-_FFMPEG_TAGS = re.compile(r"^(\[[^\]]*\]\s*)+")  # "[aac @ 0x5600...] " prefixes name ffmpeg's internals
-_DURATION = re.compile(r"Duration: (\d+):(\d\d):(\d\d(?:\.\d+)?)")
-
-
-@dataclass(frozen=True, slots=True)
-class AudioStream:
-    """One audio stream of a media file, as ffmpeg describes it."""
-
-    index: int  # position among the file's audio streams (0 = first audio stream)
-    description: str
-    is_default: bool
-
-
-@dataclass(frozen=True, slots=True)
-class MediaInfo:
-    """What probing found: duration (None when unknown) and audio streams."""
-
-    path: Path
-    duration_ms: int | None
-    audio_streams: tuple[AudioStream, ...]
-
-    def choose_stream(self, requested: int | None) -> AudioStream:
-        """The requested audio stream, else the default one, else the first.
-
-        Raises:
-            MediaError: no audio stream, or the requested one does not exist.
-        """
-        if not self.audio_streams:
-            raise MediaError(self.path, "no audio stream", "check that the file plays with sound")
-        if requested is not None:
-            if not 0 <= requested < len(self.audio_streams):
-                raise MediaError(
-                    self.path,
-                    f"--audio-stream {requested} does not exist "
-                    f"(the file has {len(self.audio_streams)} audio stream(s))",
-                    f"pass a number from 0 to {len(self.audio_streams) - 1}",
-                )
-            return self.audio_streams[requested]
-        defaults = [s for s in self.audio_streams if s.is_default]
-        return (defaults or list(self.audio_streams))[0]
-
-
-def ffmpeg_executable() -> str:
-    """Path of an ffmpeg binary: the system one, else the one bundled by imageio-ffmpeg."""
-    system = shutil.which("ffmpeg")
-    if system:
-        return system
-    import imageio_ffmpeg
-
-    return str(imageio_ffmpeg.get_ffmpeg_exe())
-
-
-def probe(path: Path) -> MediaInfo:
-    """Describe a media file's audio streams and duration without ffprobe.
-
-    Raises:
-        MediaError: the file is missing, unreadable or not media ffmpeg understands.
-    """
-    path = Path(path)
-    if path.is_dir():
-        raise MediaError(
-            path, "is a folder, not a media file", "use `captioner batch FOLDER` to caption every file in it"
-        )
-    if not path.is_file():
-        raise MediaError(path, "file not found", "check the path")
-    result = subprocess.run(
-        [ffmpeg_executable(), "-hide_banner", "-nostdin", "-i", _input_url(path)],
-        capture_output=True,
-        text=True,
-        errors="replace",
-    )
-    text = result.stderr
-    if "Input #0" not in text:
-        reason = _last_error_line(text, path) or "ffmpeg cannot read it"
-        raise MediaError(
-            path,
-            f"not a readable media file ({reason})",
-            "check that it plays; re-export it if it is damaged",
-        )
-    streams: list[AudioStream] = []
-    for match in _STREAM_LINE.finditer(text):
-        streams.append(AudioStream(len(streams), match.group(2).strip(), "(default)" in match.group(2)))
-    duration = _DURATION.search(text)
-    duration_ms = None
-    if duration:
-        hours, minutes, seconds = duration.groups()
-        duration_ms = round((int(hours) * 3600 + int(minutes) * 60 + float(seconds)) * 1000)
-    return MediaInfo(path, duration_ms, tuple(streams))
-
-
-def _input_url(path: Path) -> str:
-    """The path as ffmpeg's file protocol, so a name like "12:30 news.mp4" is not a protocol."""
-    return "file:" + str(Path(path).absolute())
-
-
-def _last_error_line(text: str, path: Path) -> str:
-    lines = [line.strip() for line in text.splitlines() if line.strip()]
-    useful = [line for line in lines if "output file" not in line.lower()]
-    line = _FFMPEG_TAGS.sub("", useful[-1]) if useful else ""
-    for name in (_input_url(path), str(Path(path).absolute()), str(path)):
-        line = line.replace(name + ": ", "").replace(name, "the file")
-    return line
+__all__ = ["AudioStream", "MediaInfo", "SubtitleStream", "decode_chunks", "ffmpeg_executable", "probe"]
 
 
 def decode_chunks(
@@ -150,30 +61,26 @@ def decode_chunks(
     """
     if sample_rate <= 0 or chunk_seconds <= 0:
         raise ValueError(f"sample_rate={sample_rate} and chunk_seconds={chunk_seconds} must be > 0")
-    args = (
-        # The input-side -vn/-sn/-dn keep the demuxer from handing over other streams, and
-        # whole-second frames make ffmpeg write the pipe in large blocks: both save CPU that
-        # the classifier needs on a 2-core machine.
-        ffmpeg.input(_input_url(path), vn=None, sn=None, dn=None)[f"a:{stream.index}"]
-        .filter("aformat", sample_fmts="flt", channel_layouts="mono")
-        .filter("aresample", sample_rate)
-        .filter("asetnsamples", n=sample_rate, p=0)
-        .output("pipe:", format="f32le", acodec="pcm_f32le", ac=1, ar=sample_rate)
-        .global_args("-nostdin", "-v", "error")
-        .compile(cmd=ffmpeg_executable())
-    )
-    chunk_bytes = int(chunk_seconds * sample_rate) * 4
+    args = _command(path, stream, sample_rate)
+    chunk_bytes = int(chunk_seconds * sample_rate) * 4 * 2  # interleaved mid and side
     with tempfile.TemporaryFile() as errors:
         process = subprocess.Popen(args, stdout=subprocess.PIPE, stderr=errors)
-        chunks: queue.Queue[bytes | None] = queue.Queue(maxsize=3)
+        chunks: queue.Queue[Fold | None] = queue.Queue(maxsize=3)
         reader = threading.Thread(target=_pump, args=(process, chunk_bytes, chunks), daemon=True)
         reader.start()
         total = 0
+        warned = False
         try:
-            while (data := chunks.get()) is not None:
-                samples = np.frombuffer(data, dtype="<f4")
-                total += samples.size
-                yield samples
+            while (folded := chunks.get()) is not None:
+                total += folded.samples.size
+                if folded.cancelled and not warned:
+                    warned = True
+                    warnings.warn(
+                        f"{path}: audio stream {stream.index} nearly cancels in a mono mix (one channel is "
+                        "polarity-inverted?); captioning from the difference of its channels",
+                        stacklevel=2,
+                    )
+                yield folded.samples
         finally:
             if process.poll() is None:
                 process.kill()
@@ -183,10 +90,12 @@ def decode_chunks(
                 except queue.Empty:
                     pass
             process.wait()
+            if process.stdout is not None:
+                process.stdout.close()
         errors.seek(0)
         message = errors.read().decode("utf-8", "replace")
     if process.returncode != 0:
-        reason = _last_error_line(message, path) or f"ffmpeg exit status {process.returncode}"
+        reason = last_error_line(message, path) or f"ffmpeg exit status {process.returncode}"
         raise MediaError(
             path,
             f"audio could not be decoded ({reason})",
@@ -198,6 +107,61 @@ def decode_chunks(
         _check_damage(path, message, round(total * 1000 / sample_rate), expected_ms)
 
 
+def peak_envelope(chunks: Iterable[np.ndarray], *, sample_rate: int, hop_ms: int = 50) -> np.ndarray:
+    """Lowest and highest sample of every `hop_ms` window, read chunk by chunk as they decode.
+
+    Returns an int8 array of shape (n_windows, 2) (min, max, full scale = 127); the last
+    window may be shorter. An hour at 50 ms is 72,000 windows, 144 kB: small enough to embed.
+    """
+    window = sample_rate * hop_ms // 1000
+    if window <= 0:
+        raise ValueError(f"sample_rate={sample_rate} and hop_ms={hop_ms} give an empty window")
+    parts: list[np.ndarray] = []
+    rest = np.zeros(0, dtype=np.float32)
+    for chunk in chunks:
+        data = np.concatenate((rest, chunk))
+        whole = data.size - data.size % window
+        blocks = data[:whole].reshape(-1, window)
+        parts.append(np.stack((blocks.min(axis=1), blocks.max(axis=1)), axis=1))
+        rest = data[whole:]
+    if rest.size:
+        parts.append(np.array([[rest.min(), rest.max()]], dtype=np.float32))
+    if not parts:
+        return np.zeros((0, 2), dtype=np.int8)
+    return np.clip(np.round(np.concatenate(parts) * 127), -127, 127).astype(np.int8)
+
+
+def _command(path: Path, stream: AudioStream, sample_rate: int) -> list[str]:
+    """The ffmpeg command: the stream on the player's clock, folded to (mid, side), at `sample_rate`.
+
+    Whole-second frames (asetnsamples) make ffmpeg write the pipe in large blocks, which
+    saves CPU that the classifier needs on a 2-core machine.
+    """
+    pan = mid_side_pan(stream.channels)
+    filters = []
+    if pan is None:  # a layout without channel names: ffmpeg's own mono mix, and no side
+        filters.append("aformat=channel_layouts=mono")
+        pan = "stereo|c0=FC|c1=0*FC"
+    filters += [
+        f"pan={pan}",
+        "aformat=sample_fmts=flt:channel_layouts=stereo",
+        # async: pad the gap before the first sample (and any later gap) with silence, and
+        # drop what lies before zero, so samples sit on the player's clock.
+        f"aresample={sample_rate}:async=1:first_pts=0",
+        f"asetnsamples=n={sample_rate}:p=0",
+    ]
+    # The input-side -vn/-sn/-dn keep the demuxer from handing over other streams (a saving
+    # on a 2-core machine), except the video where the format re-bases time on it.
+    skip = ("-sn", "-dn") if stream.rebased else ("-vn", "-sn", "-dn")
+    return [
+        ffmpeg_executable(),
+        *("-nostdin", "-v", "error", *skip, "-i", input_url(path)),
+        *("-map", f"0:a:{stream.index}", "-af", ",".join(filters)),
+        *("-f", "f32le", "-acodec", "pcm_f32le", "-ac", "2", "-ar", str(sample_rate), "pipe:"),
+        *clock_keeper(stream.rebased),
+    ]
+
+
 def _check_damage(path: Path, message: str, decoded_ms: int, expected_ms: int | None) -> None:
     """Decoder errors: fatal when the audio also stops well short of its declared length."""
     # Container durations are estimates for some formats, so only a clear shortfall that
@@ -205,7 +169,8 @@ def _check_damage(path: Path, message: str, decoded_ms: int, expected_ms: int | 
     if expected_ms and decoded_ms < 0.95 * expected_ms - 500:
         raise MediaError(
             path,
-            f"truncated or damaged: only {decoded_ms / 1000:.1f} s of its {expected_ms / 1000:.1f} s of audio decode ({_last_error_line(message, path)})",
+            f"truncated or damaged: only {decoded_ms / 1000:.1f} s of its {expected_ms / 1000:.1f} s of "
+            f"audio decode ({last_error_line(message, path)})",
             "copy or export the file again",
         )
     count = sum(1 for line in message.splitlines() if line.strip())
@@ -215,16 +180,22 @@ def _check_damage(path: Path, message: str, decoded_ms: int, expected_ms: int | 
     )
 
 
-def _pump(process: subprocess.Popen[bytes], chunk_bytes: int, chunks: queue.Queue[bytes | None]) -> None:
-    """Move ffmpeg's output into the queue in whole-chunk blocks (runs in a thread)."""
-    assert process.stdout is not None
-    pending = bytearray()
-    while block := process.stdout.read(chunk_bytes - len(pending)):
-        pending += block
-        if len(pending) >= chunk_bytes:
-            chunks.put(bytes(pending))
-            pending.clear()
-    usable = len(pending) - len(pending) % 4
+def _pump(process: subprocess.Popen[bytes], chunk_bytes: int, chunks: queue.Queue[Fold | None]) -> None:
+    """Move ffmpeg's output into the queue in whole-chunk blocks, folded to mono (runs in a
+    thread, so the queue holds mono chunks and the fold overlaps with classification).
+
+    The pipe is read straight into one reused buffer: `fold` copies what it keeps.
+    """
+    assert isinstance(process.stdout, io.BufferedReader)
+    block = np.empty(chunk_bytes // 4, dtype="<f4")
+    view = block.data.cast("B")
+    filled = 0
+    while read := process.stdout.readinto(view[filled:]):
+        filled += read
+        if filled == chunk_bytes:
+            chunks.put(fold(block))
+            filled = 0
+    usable = filled - filled % 8  # whole (mid, side) pairs
     if usable:
-        chunks.put(bytes(pending[:usable]))
+        chunks.put(fold(block[: usable // 4]))
     chunks.put(None)

@@ -18,7 +18,7 @@ import sys
 import tempfile
 import zipfile
 from collections.abc import Callable
-from dataclasses import dataclass, fields
+from dataclasses import dataclass, fields, replace
 from pathlib import Path
 from typing import Any
 
@@ -27,11 +27,13 @@ import yaml
 
 from .errors import PackError
 from .features import Frontend
+from .heads import HeadSet, check_heads_fit, combine_heads, load_heads, with_head_concepts
 from .vocabulary import Vocabulary, load_vocabulary
 
 DEFAULT_PACK = "yamnet-int8"
 _BUILTIN_DIR = Path(__file__).parent / "data"
-_BATCHED_SUFFIX = ".batched.onnx"
+# The batched graph also outputs the embedding (a new name, so a cache made before that is redone).
+_BATCHED_SUFFIX = ".batched-embedding.onnx"
 
 
 @dataclass(frozen=True, slots=True)
@@ -51,6 +53,8 @@ class PackManifest:
     files: dict[str, dict[str, str]]
     source: dict[str, str] | None
     licence_note: str
+    embedding: str | None = None  # graph tensor holding the per-patch embedding, exposed as an output
+    heads: tuple[tuple[Path, str | None], ...] = ()  # concept-head files (path, SHA-256 or None)
 
     @property
     def is_downloaded(self) -> bool:
@@ -99,7 +103,20 @@ def read_manifest(name_or_path: str, cache: Path) -> PackManifest:
         data = yaml.safe_load(path.read_text(encoding="utf-8"))
     except (OSError, UnicodeDecodeError, yaml.YAMLError) as exc:
         raise PackError(path, f"cannot read the pack manifest ({_first_line(exc)})", "fix the YAML") from exc
+    if isinstance(data, dict) and "extends" in data:
+        return _extended(data, path, cache)
     return _parse_manifest(data, path, cache)
+
+
+def _extended(data: dict[str, Any], path: Path, cache: Path) -> PackManifest:
+    """A manifest that adds heads to another pack (what `captioner teach` writes)."""
+    base_name = str(data["extends"])
+    if base_name == str(data.get("name")) or "extends" in str(data.get("heads", "")):
+        raise PackError(path, "a pack cannot extend itself", "name a built-in pack or another manifest")
+    base_path = base_name if base_name in builtin_packs() else str(path.parent / base_name)
+    base = read_manifest(base_path, cache)
+    extra = _parse_heads(data.get("heads") or [], path)
+    return replace(base, name=str(data.get("name", base.name)), heads=base.heads + extra)
 
 
 def _parse_manifest(data: Any, path: Path, cache: Path) -> PackManifest:
@@ -144,6 +161,7 @@ def _parse_manifest(data: Any, path: Path, cache: Path) -> PackManifest:
             )
     root = cache / "packs" / str(data["name"]) if source else path.parent
     vocabulary = Path(data["vocabulary"])
+    heads = _parse_heads(data.get("heads") or [], path)
     return PackManifest(
         name=str(data["name"]),
         version=str(data.get("version", "1")),
@@ -158,7 +176,23 @@ def _parse_manifest(data: Any, path: Path, cache: Path) -> PackManifest:
         files={str(k): {str(a): str(b) for a, b in v.items()} for k, v in files.items()},
         source={str(k): str(v) for k, v in source.items()} if source else None,
         licence_note=str(data.get("licence_note", "")).strip(),
+        embedding=str(data["embedding"]) if data.get("embedding") else None,
+        heads=heads,
     )
+
+
+def _parse_heads(entries: Any, path: Path) -> tuple[tuple[Path, str | None], ...]:
+    """Head files named by the manifest, resolved against the manifest's folder."""
+    if not isinstance(entries, list):
+        raise PackError(path, "heads must be a list of {file, sha256}", "see the built-in yamnet.pack.yaml")
+    heads = []
+    for entry in entries:
+        if not isinstance(entry, dict) or "file" not in entry:
+            raise PackError(path, f"head entry {entry!r} needs a file field", "fix the manifest")
+        file = Path(str(entry["file"]))
+        digest = entry.get("sha256")
+        heads.append((file if file.is_absolute() else path.parent / file, str(digest) if digest else None))
+    return tuple(heads)
 
 
 def _first_line(exc: BaseException) -> str:
@@ -218,7 +252,7 @@ def install(
         staging = Path(tempfile.mkdtemp(prefix=f".{root.name}-", dir=root.parent))
         for name, data in contents.items():
             (staging / name).write_bytes(data)
-        _write_batched_graph(staging / manifest.model)
+        _write_batched_graph(staging / manifest.model, manifest.embedding)
         if root.exists():
             shutil.rmtree(root)
         staging.rename(root)
@@ -322,18 +356,25 @@ def is_intact(manifest: PackManifest) -> bool:
     return True
 
 
-def _write_batched_graph(model_path: Path) -> Path:
+def _write_batched_graph(model_path: Path, embedding: str | None = None) -> Path:
     """Save a copy of the graph whose batch dimension is free, beside the original.
 
     The exported graph fixes batch 1 twice: in the input/output shapes and in the shape
     constant [1, -1] of its final Reshape. Setting that constant to [0, -1] (0 = keep the
-    incoming dimension) lets patches run in batches with identical outputs.
+    incoming dimension) lets patches run in batches with identical outputs. The tensor named
+    `embedding` (the input of the classifier's last layer) becomes a second output.
     """
     import onnx
-    from onnx import numpy_helper
+    from onnx import TensorProto, helper, numpy_helper
 
     model = onnx.load(str(model_path), load_external_data=False)
     graph = model.graph
+    if embedding is not None and embedding not in {o.name for o in graph.output}:
+        if embedding not in {out for node in graph.node for out in node.output}:
+            raise PackError(
+                model_path, f"the graph has no tensor {embedding!r}", "fix the pack's embedding field"
+            )
+        graph.output.append(helper.make_tensor_value_info(embedding, TensorProto.FLOAT, ["batch", None]))
     for value in list(graph.input) + list(graph.output):
         dims = value.type.tensor_type.shape.dim
         if dims and dims[0].HasField("dim_value") and dims[0].dim_value == 1:
@@ -410,14 +451,34 @@ class OnnxClassifier:
                 "reinstall the pack or check your model file",
             ) from exc
         self.apply_sigmoid = output == "logits"
+        outputs = self.session.get_outputs()
+        self.output_names = [outputs[0].name] + ([outputs[1].name] if len(outputs) > 1 else [])
+        self.has_embedding = len(self.output_names) > 1
+        self.embedding_size = 0
+        if self.has_embedding:  # the graph leaves the width symbolic: one silent patch tells it
+            probe = self.with_embeddings(np.zeros((1, *graph_patch_shape(graph)), np.float32))[1]
+            self.embedding_size = 0 if probe is None else int(probe.shape[1])
 
     def __call__(self, patches: np.ndarray) -> np.ndarray:
+        return self._probabilities(
+            self.session.run(self.output_names[:1], {self.input_name: self._input(patches)})[0]
+        )
+
+    def with_embeddings(self, patches: np.ndarray) -> tuple[np.ndarray, np.ndarray | None]:
+        """(class probabilities (n, n_classes), embeddings (n, d) float32 or None without that output)."""
+        results = self.session.run(self.output_names, {self.input_name: self._input(patches)})
+        embeddings = results[1].reshape(len(patches), -1).astype(np.float32) if len(results) > 1 else None
+        return self._probabilities(results[0]), embeddings
+
+    def _input(self, patches: np.ndarray) -> np.ndarray:
         batch = patches[:, None, :, :]
         if self.input_quant is not None:
             scale, zero_point = self.input_quant
             batch = np.clip(np.round(batch / scale) + zero_point, 0, 255).astype(np.uint8)
-        raw = self.session.run(None, {self.input_name: batch})[0]
-        values = raw.astype(np.float32)
+        return batch
+
+    def _probabilities(self, raw: np.ndarray) -> np.ndarray:
+        values: np.ndarray = raw.astype(np.float32)
         if self.output_quant is not None:
             scale, zero_point = self.output_quant
             values = (values - zero_point) * scale
@@ -425,6 +486,12 @@ class OnnxClassifier:
             values = 1.0 / (1.0 + np.exp(-np.clip(values, -60.0, 60.0)))
         probabilities: np.ndarray = values.astype(np.float32)
         return probabilities
+
+
+def graph_patch_shape(graph: Any) -> tuple[int, int]:
+    """(frames, mels) of one patch, from the graph's input shape [batch, 1, frames, mels]."""
+    dims = [d.dim_value for d in graph.input[0].type.tensor_type.shape.dim]
+    return (dims[-2] or 96, dims[-1] or 64)
 
 
 def _quantization(graph: Any, tensor: str, op_type: str, *, as_input: bool) -> tuple[float, float] | None:
@@ -448,6 +515,7 @@ class LoadedPack:
     labels: tuple[str, ...]
     vocabulary: Vocabulary
     classifier: OnnxClassifier
+    heads: HeadSet | None = None  # concept heads over the embedding (None: class scores only)
 
 
 def load_pack(
@@ -473,8 +541,16 @@ def load_pack(
             f"put it beside {manifest.manifest_path.name} or fix its `model:` field",
         )
     batched = model_path.with_name(model_path.stem + _BATCHED_SUFFIX)
-    if manifest.is_downloaded and not batched.is_file():
-        _write_batched_graph(model_path)
+    if (manifest.is_downloaded or manifest.embedding) and not batched.is_file():
+        _write_batched_graph(model_path, manifest.embedding)
     labels = read_labels(manifest)
     classifier = OnnxClassifier(batched if batched.is_file() else model_path, output=manifest.output)
-    return LoadedPack(manifest, labels, load_vocabulary(manifest.vocabulary, labels), classifier)
+    vocabulary = load_vocabulary(manifest.vocabulary, labels)
+    head_sets = tuple(load_heads(file, expected_sha256=digest) for file, digest in manifest.heads)
+    if head_sets and not classifier.has_embedding:
+        raise PackError(
+            manifest.manifest_path, "the pack names heads but no embedding output", "add the embedding field"
+        )
+    heads = combine_heads(head_sets, classifier.embedding_size, len(labels), manifest.manifest_path)
+    check_heads_fit(heads, vocabulary, manifest.manifest_path)
+    return LoadedPack(manifest, labels, with_head_concepts(vocabulary, heads), classifier, heads)

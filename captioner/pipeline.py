@@ -6,39 +6,32 @@ import dataclasses
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from typing import TYPE_CHECKING
 
 from threadpoolctl import threadpool_limits
 
-from . import media
+from . import __version__, media, update
+from .captioned import Captioned as Captioned  # re-exported: pipeline.Captioned
 from .cues import Cue, build_cues
 from .dialogue import speech_spans
+from .dialogue_sources import embedded_dialogue, embedded_stream
 from .errors import StyleError
 from .events import SoundEvent, Span, detect_events
+from .formats import WRITERS, sidecar
+from .formats.merge import (
+    MergedTrack,
+    dropped_decisions,
+    dumps_merged,
+    merge_tracks,
+    outcomes_json,
+    sound_cues_from_track,
+)
+from .formats.subtitles import SubtitleTrack, read_track
+from .ownership import sealed
 from .packs import LoadedPack
 from .policy import Decision, select_events
 from .scores import ScoreTrack, compute_scores
 from .style import Style
-from .vocabulary import Vocabulary
-
-if TYPE_CHECKING:  # imported where used, as formats.sidecar imports this module
-    from .formats.merge import MergedTrack
-    from .formats.subtitles import SubtitleTrack
-
-
-@dataclass(frozen=True, slots=True)
-class Captioned:
-    """Everything one run produced, for writers, the sidecar and the explain table."""
-
-    source: Path
-    style: Style
-    pack_name: str
-    track: ScoreTrack
-    dialogue: tuple[Span, ...]
-    dialogue_source: str  # "classifier" or the subtitle file used
-    events: tuple[SoundEvent, ...]
-    decisions: tuple[Decision, ...]
-    cues: tuple[Cue, ...]
+from .vocabulary import Vocabulary, house_vocabulary
 
 
 def caption_track(
@@ -49,6 +42,7 @@ def caption_track(
     dialogue: tuple[Span, ...] | None = None,
 ) -> tuple[tuple[Span, ...], tuple[SoundEvent, ...], tuple[Decision, ...], tuple[Cue, ...]]:
     """The pure part: score track -> dialogue spans, events, decisions, cues."""
+    vocabulary = house_vocabulary(vocabulary, style.vocabulary, style.name)
     spans = speech_spans(track, vocabulary, style.detection) if dialogue is None else dialogue
     events = detect_events(track, vocabulary, style.detection)
     selected = select_events(events, spans, style.selection)
@@ -59,17 +53,20 @@ def caption_track(
 
 
 def check_style_fits_pack(style: Style, pack: LoadedPack) -> None:
-    """The patch hop must be a whole number of the pack's frames (10 ms for YAMNet).
+    """The patch hop must be a whole number of the pack's frames (10 ms for YAMNet), and a
+    house vocabulary may only name concepts of the pack.
 
     Raises:
         StyleError: it is not.
     """
+    house_vocabulary(pack.vocabulary, style.vocabulary, style.name)  # names only concepts it has
     frame_ms = pack.manifest.frontend.frame_ms
     frames = style.detection.patch_hop_ms / frame_ms
     if abs(frames - round(frames)) > 1e-6 or round(frames) < 1:
         raise StyleError(
             style.name,
-            f"detection.patch_hop_ms={style.detection.patch_hop_ms} is not a whole number of the model pack's {frame_ms:g} ms frames",
+            f"detection.patch_hop_ms={style.detection.patch_hop_ms} is not a whole number of the model "
+            f"pack's {frame_ms:g} ms frames",
             f"use a multiple of {frame_ms:g} ms",
         )
 
@@ -79,16 +76,18 @@ def caption_file(
     pack: LoadedPack,
     style: Style,
     *,
-    audio_stream: int | None = None,
+    audio_stream: int | str | None = None,
     dialogue: tuple[Span, ...] | None = None,
     dialogue_source: str = "classifier",
+    dialogue_language: str | None = None,
     on_start: Callable[[int | None], None] | None = None,
     on_progress: Callable[[int], None] | None = None,
 ) -> Captioned:
     """Decode, classify and caption one file.
 
     `on_start` receives the duration in ms (None when unknown) before decoding begins;
-    `on_progress` receives ms of audio processed after each chunk.
+    `on_progress` receives ms of audio processed after each chunk. Without `dialogue`, a
+    text subtitle stream inside the file (of `dialogue_language` when given) marks dialogue.
 
     Raises:
         MediaError: the file cannot be probed or decoded.
@@ -96,6 +95,11 @@ def caption_file(
     check_style_fits_pack(style, pack)
     info = media.probe(path)
     stream = info.choose_stream(audio_stream)
+    if dialogue is None and (embedded := embedded_stream(info, dialogue_language)) is not None:
+        dialogue = embedded_dialogue(info, embedded)
+        dialogue_source = f"{path.name} subtitle stream {embedded.index}" + (
+            f" ({embedded.language})" if embedded.language else ""
+        )
     if on_start:
         on_start(info.duration_ms)
     rate = pack.manifest.frontend.sample_rate
@@ -110,10 +114,23 @@ def caption_file(
             pack.manifest.frontend,
             hop_ms=style.detection.patch_hop_ms,
             level_spread_db=style.detection.level_spread_db,
+            heads=pack.heads,
             on_progress=progress,
         )
     spans, events, decisions, cues = caption_track(track, pack.vocabulary, style, dialogue=dialogue)
-    return Captioned(path, style, pack.manifest.name, track, spans, dialogue_source, events, decisions, cues)
+    return Captioned(
+        path,
+        style,
+        pack.manifest.name,
+        track,
+        spans,
+        dialogue_source,
+        events,
+        decisions,
+        cues,
+        stream,
+        info.audio_streams,
+    )
 
 
 @dataclass(frozen=True, slots=True)
@@ -133,10 +150,6 @@ class Drafts:
 
     def events_json(self) -> str:
         """The JSON sidecar: every event, decision and score curve, plus the merge outcome."""
-        from .formats import sidecar
-        from .formats.merge import outcomes_json
-        from .ownership import sealed
-
         document = sidecar.sidecar(self.result, self.vocabulary)
         if self.merged is not None:
             document["merge"] = {
@@ -157,14 +170,12 @@ def draft_outputs(
 ) -> Drafts:
     """Render a captioned file: the sound track in `fmt` ("vtt" or "srt") and, given a
     dialogue track, that track merged with the sound cues."""
-    from . import __version__, update
-    from .formats import WRITERS
-    from .formats.merge import dropped_decisions
-
     note = (
         f"{update.NOTE_OPENING} {__version__} from {result.source.name}\n"
         f"style {result.style.name}, model pack {result.pack_name}; review before publishing"
     )
+    if result.stream_line():
+        note += "\n" + result.stream_line()
     merged, merged_text = None, None
     if merge_with is not None:
         merged, merged_text = merge_text(
@@ -183,9 +194,6 @@ def merge_text(
 ) -> tuple[MergedTrack, str]:
     """Dialogue and sound cues as one track, and its text (a WebVTT one sealed, so a later
     run can tell it from a hand-edited copy)."""
-    from .formats.merge import dumps_merged, merge_tracks
-    from .ownership import sealed
-
     merged = merge_tracks(dialogue, sounds, style)
     return merged, sealed(dumps_merged(merged, note), merged.format)
 
@@ -196,10 +204,6 @@ def merge_kept_track(sounds: Path, dialogue: Path, style: Style) -> str:
     Raises:
         SubtitleError: either file cannot be read.
     """
-    from . import __version__
-    from .formats.merge import sound_cues_from_track
-    from .formats.subtitles import read_track
-
     note = (
         f"Dialogue of {dialogue.name} with the sound captions of {sounds.name} as edited by hand\n"
         f"merged by captioner {__version__}, style {style.name}; review before publishing"

@@ -3,13 +3,15 @@
 Rules run in a fixed order; the first rule that drops an event names the decision:
 
     confidence, duration, salience  -- the event alone is too weak to caption
-    evidence   -- no signal energy backs the claim (near-silence, or not above the noise floor)
+    evidence   -- no signal energy backs the claim (near-silence, or not above the noise floor;
+                  a lasting sound heard from the start has no floor of its own and is exempt)
     parent     -- a confident, more specific concept covers it (vehicle under car horn),
                   or it is an unsure child that its surer parent already names, or a sure
                   source whose name a longer sourceless parent ("alarm") takes over
     music      -- a mood/genre/singing detail that is not confident enough to word the music
     duration   -- music shorter than music_min_ms (checked after the music wording is given)
-    sibling    -- another refinement of the same parent scored higher on the same sound (when
+    sibling    -- another refinement of the same parent, or a concept the vocabulary marks as
+                  the same sound (same_sound), scored higher on the same sound (when
                   the two scored within sibling_margin, the kept one is worded as the parent:
                   "[alarm blaring]", not a guess between "car alarm" and "smoke alarm")
     generic    -- a sourceless description ("beeping") beside a specific sound of that moment,
@@ -79,7 +81,10 @@ def salience(event: SoundEvent, settings: Selection = _DEFAULTS) -> float:
     length_weight for 0..3 s of duration.
 
     >>> from captioner.vocabulary import Kind
-    >>> e = SoundEvent("e1", "dog", "Bark", "dog barking", "dog barks", Kind.TRANSIENT, 3, None, 0, 1500, 0.8, 0.6, -20.0, -30.0)
+    >>> e = SoundEvent(
+    ...     "e1", "dog", "Bark", "dog barking", "dog barks", Kind.TRANSIENT, 3, None,
+    ...     0, 1500, 0.8, 0.6, -20.0, -30.0,
+    ... )
     >>> round(salience(e), 3)
     0.9
     """
@@ -144,11 +149,19 @@ def _weak(events: list[SoundEvent], settings: Selection, drop: _Drop) -> list[So
             settings.evidence_gate
             and event.above_floor_db < settings.min_contrast_db
             and not _safety_exempt(event, settings)
+            and not _from_the_start(event, settings)
         ):
             drop(event, "evidence", f"only {event.above_floor_db:+.1f} dB above the noise floor")
         else:
             alive.append(event)
     return alive
+
+
+def _from_the_start(event: SoundEvent, settings: Selection) -> bool:
+    """A lasting sound playing from the first second (a music bed under the opening titles)
+    has no quieter stretch before it: its surroundings are itself, so the floor it is
+    compared with is its own level. Only the near-silence test applies to it."""
+    return event.kind in LASTING and event.start_ms < settings.opening_ms
 
 
 def _brief_music(alive: list[SoundEvent], music_min_ms: int, drop: _Drop) -> list[SoundEvent]:
@@ -185,7 +198,12 @@ def _worded_by(parent: SoundEvent, child: SoundEvent, notes: dict[str, str], **c
     """The parent event, keeping its span, worded as the child names the sound."""
     notes[parent.event_id] = f"worded by {child.concept} ({child.event_id}, {child.peak_score:.2f})"
     return replace(
-        parent, label=child.label, phrase=child.phrase, phrase_present=child.phrase_present, **changes
+        parent,
+        label=child.label,
+        phrase=child.phrase,
+        phrase_present=child.phrase_present,
+        noun=child.noun,
+        **changes,
     )
 
 
@@ -224,7 +242,8 @@ def _parents(
                     drop(
                         child,
                         "music",
-                        f"{child.label} {child.peak_score:.2f} < {settings.music_detail_confidence}: plain music wording",
+                        f"{child.label} {child.peak_score:.2f} < {settings.music_detail_confidence}: plain "
+                        "music wording",
                     )
                 break
             if _shared_ms(parent, child) * 2 < parent.duration_ms:
@@ -260,25 +279,37 @@ def _parents(
                 drop(
                     child,
                     "parent",
-                    f"unsure ({child.peak_score:.2f}); the broader {parent.concept} ({parent.event_id}) names it",
+                    f"unsure ({child.peak_score:.2f}); the broader {parent.concept} ({parent.event_id}) "
+                    "names it",
                 )
                 break
     return [by_id[e.event_id] for e in alive if e.event_id not in gone]
 
 
-def _siblings(alive: list[SoundEvent], margin: float, drop: _Drop, notes: dict[str, str]) -> list[SoundEvent]:
-    """Refinements of the same parent that share most of their time are one sound, named once.
+def _one_sound(keeper: SoundEvent, other: SoundEvent) -> bool:
+    """Refinements of one parent, or concepts the vocabulary says name the same sound (then
+    never at the cost of a more important one: an engine never hides the siren it carries)."""
+    if keeper.parent is not None and keeper.parent == other.parent:
+        return True
+    declared = keeper.concept in other.same_sound or other.concept in keeper.same_sound
+    return declared and other.priority <= keeper.priority
 
-    When the classifier could barely tell them apart (peaks within `margin`), the sound is
-    named by what they share: a wrong specific name misleads more than a right general one.
+
+def _siblings(alive: list[SoundEvent], margin: float, drop: _Drop, notes: dict[str, str]) -> list[SoundEvent]:
+    """Refinements of the same parent that share most of their time are one sound, named once;
+    so are near-synonym concepts (`same_sound` in the vocabulary: "rain" and "water").
+
+    When the classifier could barely tell two refinements apart (peaks within `margin`),
+    the sound is named by what they share: a wrong specific name misleads more than a
+    right general one.
     """
     gone: set[str] = set()
     reworded: dict[str, SoundEvent] = {}
     for event in sorted(alive, key=lambda e: -e.peak_score):
-        if event.event_id in gone or event.parent is None:
+        if event.event_id in gone:
             continue
         for other in alive:
-            if other is event or other.event_id in gone or other.parent != event.parent:
+            if other is event or other.event_id in gone or not _one_sound(event, other):
                 continue
             if (
                 _shared_ms(event, other) * 2 >= min(event.duration_ms, other.duration_ms)
@@ -290,13 +321,16 @@ def _siblings(alive: list[SoundEvent], margin: float, drop: _Drop, notes: dict[s
                 )
                 if (
                     event.peak_score - other.peak_score < margin
+                    and other.parent == event.parent
                     and event.parent_wording
                     and event.event_id not in reworded
                 ):
                     phrase, present = event.parent_wording
-                    reworded[event.event_id] = replace(event, phrase=phrase, phrase_present=present)
+                    # noun "": the end cue names the parent's phrase too
+                    reworded[event.event_id] = replace(event, phrase=phrase, phrase_present=present, noun="")
                     notes[event.event_id] = (
-                        f"worded as {event.parent}: {other.concept} scored {other.peak_score:.2f}, too close to tell"
+                        f"worded as {event.parent}: {other.concept} scored {other.peak_score:.2f}, too "
+                        "close to tell"
                     )
     return [reworded.get(e.event_id, e) for e in alive if e.event_id not in gone]
 
@@ -433,7 +467,8 @@ def _repeats(
         drop(
             event,
             "repeat",
-            f"joined to {earlier.event_id}, the same sound {max(0, event.start_ms - earlier.end_ms)} ms after it",
+            f"joined to {earlier.event_id}, the same sound {max(0, event.start_ms - earlier.end_ms)} ms "
+            "after it",
         )
     return joined
 

@@ -7,7 +7,8 @@ from collections.abc import Iterator
 from contextlib import contextmanager
 from typing import Any
 
-from .pipeline import Captioned
+from .captioned import Captioned
+from .probing import MediaInfo
 
 _LONG_INPUT_MS = 30_000  # shorter inputs finish before a bar is worth drawing
 
@@ -46,28 +47,56 @@ def progress_bar(*, enabled: bool, label: str) -> Iterator[_Progress]:
 
 
 def _clock(ms: int) -> str:
-    """m:ss.t
+    """h:mm:ss.t, rounded to the tenth once so that a carry reaches the minutes and hours.
 
-    >>> _clock(83450)
-    '1:23.4'
+    >>> _clock(83450), _clock(359_960), _clock(3_599_960), _clock(7_099_600)
+    ('0:01:23.4', '0:06:00.0', '1:00:00.0', '1:58:19.6')
     """
-    return f"{ms // 60000}:{ms % 60000 / 1000:04.1f}"
+    tenths = round(ms / 100)
+    hours, rest = divmod(tenths, 36000)
+    minutes, rest = divmod(rest, 600)
+    return f"{hours}:{minutes:02d}:{rest // 10:02d}.{rest % 10}"
+
+
+def streams_table(info: MediaInfo) -> str:
+    """`captioner streams`: the audio streams (default marked), then the text subtitle streams."""
+    rows = [f"{info.path.name}: {len(info.audio_streams)} audio stream(s); * = the default"]
+    header = f"  {'#':>2} {'codec':<10} {'channels':<10} {'language':<8} {'starts':>8}  title"
+    rows += [header, "  " + "-" * (len(header) - 2)]
+    for s in info.audio_streams:
+        mark = "*" if s.is_default else " "
+        rows.append(
+            f"{mark} {s.index:>2} {s.codec:<10} {s.channels:<10} {s.language or '-':<8} "
+            f"{s.start_ms / 1000:>7.3f}s  {s.title}"
+        )
+    texts = [s for s in info.subtitle_streams if s.is_text]
+    if texts:
+        rows.append(
+            f"{len(texts)} text subtitle stream(s), read as dialogue when no subtitle file sits beside:"
+        )
+        rows += [f"  {s.index:>2} {s.codec:<10} {s.language or '-':<8} {s.title}" for s in texts]
+    return "\n".join(rows)
 
 
 def explain_table(result: Captioned) -> str:
     """One row per detected event: time, concept, score, level, decision and reason."""
     decisions = {d.event_id: d for d in result.decisions}
-    header = f"{'event':<6} {'start':>7} {'end':>7} {'concept':<18} {'score':>5} {'dB':>5}  {'decision':<10} reason"
+    header = (
+        f"{'event':<6} {'start':>9} {'end':>9} {'concept':<18} {'score':>5} {'dB':>5}  {'decision':<10} "
+        "reason"
+    )
     rows = [header, "-" * len(header)]
     for event in result.events:
         decision = decisions[event.event_id]
         verdict = "KEPT" if decision.kept else f"drop:{decision.rule}"
         rows.append(
-            f"{event.event_id:<6} {_clock(event.start_ms):>7} {_clock(event.end_ms):>7} {event.concept[:18]:<18} "
+            f"{event.event_id:<6} {_clock(event.start_ms):>9} {_clock(event.end_ms):>9} "
+            f"{event.concept[:18]:<18} "
             f"{event.peak_score:5.2f} {event.contrast_db:+5.0f}  {verdict:<10} {decision.detail}"
         )
     kept = sum(d.kept for d in result.decisions)
     rows.append(
-        f"{len(result.events)} events detected, {kept} kept, {len(result.cues)} cues; dialogue from {result.dialogue_source}"
+        f"{len(result.events)} events detected, {kept} kept, {len(result.cues)} cues; dialogue from "
+        f"{result.dialogue_source}"
     )
     return "\n".join(rows)

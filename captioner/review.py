@@ -11,27 +11,44 @@ from __future__ import annotations
 
 import base64
 import hashlib
+import html
 import json
 import os
 import re
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from importlib import resources
 from pathlib import Path
 from typing import Any, Literal
 from urllib.parse import quote
 
+import numpy as np
+
 from .cues import word
 from .errors import MediaError, SubtitleError
 from .formats import sound_track_path
-from .formats.subtitles import SubtitleTrack, decode_text, plain_lines, read_track
+from .formats.subtitles import SubtitleFormat, SubtitleTrack, decode_text, read_track
+from .media import decode_chunks, peak_envelope, probe
 from .style import Wording
 from .update import note_blocks
 
 MediaKind = Literal["audio", "video"]
 _AUDIO_SUFFIXES = {".wav", ".mp3", ".m4a", ".aac", ".flac", ".ogg", ".oga", ".opus", ".wma", ".aif", ".aiff"}
-_MAX_CURVES = 8  # more lines than this cannot be told apart on one small chart
 _SLOT = re.compile(r"\{\{(POLICY|STYLE|SCRIPT|DATA)\}\}")
+_TAG_SPLIT = re.compile(r"(<[^>]*>)")
+WAVEFORM_HOP_MS = 50
+_WAVEFORM_RATE = 8000  # the envelope needs no more: peaks, not spectra
+
+# Curve colours designed for this page: twenty colours chosen by farthest-point search over
+# sRGB for the largest smallest CIEDE2000 distance between any two, as seen with normal
+# vision and under simulated deuteranopia and protanopia (Machado et al. 2009, severity 1),
+# each with at least 3:1 contrast on the white timeline (WCAG 2.1, 1.4.11 non-text contrast).
+# Listed most distinct first: a page with few concepts uses the best-separated ones.
+PALETTE = (
+    "#001eff", "#69a500", "#4b4b3c", "#789696", "#2d96ff", "#5a6900", "#005a69", "#5a9678",
+    "#7878b4", "#4b7869", "#2d69ff", "#5a784b", "#691eb4", "#69872d", "#5a4b1e", "#876987",
+    "#7896b4", "#695a96", "#ff0f69", "#96005a",
+)  # fmt: skip
 
 
 @dataclass(frozen=True, slots=True)
@@ -42,6 +59,7 @@ class ReviewInputs:
     captions: SubtitleTrack
     captions_path: Path
     sidecar: Mapping[str, Any] | None
+    sidecar_path: Path | None = None
 
 
 def media_kind(path: Path) -> MediaKind:
@@ -73,7 +91,8 @@ def load_inputs(media: Path, captions: Path | None, sidecar: Path | None) -> Rev
     track = read_track(captions_path)
     if sidecar is None and sound_track_path(media, "json").is_file():
         sidecar = sound_track_path(media, "json")
-    return ReviewInputs(media, track, captions_path, _read_sidecar(sidecar) if sidecar else None)
+    document = _read_sidecar(sidecar) if sidecar else None
+    return ReviewInputs(media, track, captions_path, document, Path(sidecar) if sidecar else None)
 
 
 def _read_sidecar(path: Path) -> Mapping[str, Any]:
@@ -96,19 +115,29 @@ def _read_sidecar(path: Path) -> Mapping[str, Any]:
     return document
 
 
-def page_data(inputs: ReviewInputs, page: Path) -> dict[str, Any]:
-    """Everything the page script needs, as JSON-ready values (times in integer ms)."""
+def page_data(
+    inputs: ReviewInputs,
+    media_src: str,
+    *,
+    waveform: np.ndarray | None = None,
+    save: Mapping[str, Any] | None = None,
+) -> dict[str, Any]:
+    """Everything the page script needs, as JSON-ready values (times in integer ms).
+
+    `media_src` is the URL the player loads (`media_link` for a page on disk); `waveform`
+    is a `media.peak_envelope` at WAVEFORM_HOP_MS; `save` tells a served page where and
+    against which file version to save in place (None: the page can only download).
+    """
     sidecar = inputs.sidecar or {}
     events = sidecar.get("events", [])
     track = inputs.captions
-    folder = Path(page).resolve().parent
-    relative = Path(os.path.relpath(inputs.media.resolve(), folder)).as_posix()
     # NOTE blocks are not part of the parsed track; read them with the same decoder as the cues.
     text = (
         decode_text(inputs.captions_path, inputs.captions_path.read_bytes()) if track.format == "vtt" else ""
     )
+    concept_of = {e["id"]: e["concept"] for e in events if "id" in e and "concept" in e}
     return {
-        "media": {"src": quote(relative), "name": inputs.media.name, "kind": media_kind(inputs.media)},
+        "media": {"src": media_src, "name": inputs.media.name, "kind": media_kind(inputs.media)},
         "captions": {
             "name": inputs.captions_path.name,
             "stem": inputs.captions_path.stem,
@@ -122,18 +151,25 @@ def page_data(inputs: ReviewInputs, page: Path) -> dict[str, Any]:
             {
                 "start_ms": c.start_ms,
                 "end_ms": c.end_ms,
-                "text": "\n".join(plain_lines(c.text, track.format)),
+                "text": editor_text(c.text, track.format),
                 "identifier": c.identifier if track.format == "vtt" else "",
                 "settings": c.settings.strip(),
+                "concept": concept_of.get(c.identifier, ""),
             }
             for c in track.cues
         ],
         "duration_ms": sidecar.get("duration_ms"),
         "dialogue": sidecar.get("dialogue", {}).get("spans", []),
-        "curves": _curves(sidecar, {e["concept"] for e in events}),
+        "curves": _curves(sidecar, {e["concept"] for e in events if "concept" in e}),
+        "waveform": None
+        if waveform is None
+        else {"hop_ms": WAVEFORM_HOP_MS, "peaks": base64.b64encode(waveform.tobytes()).decode("ascii")},
+        "palette": list(PALETTE),
+        "save": dict(save) if save else None,
         "dropped": [
             {
                 "id": e["id"],
+                "concept": e.get("concept", ""),
                 "text": _caption(e),
                 "start_ms": e["start_ms"],
                 "end_ms": e["end_ms"],
@@ -145,6 +181,39 @@ def page_data(inputs: ReviewInputs, page: Path) -> dict[str, Any]:
             if not e.get("kept", True)
         ],
     }
+
+
+def media_link(media: Path, page: Path) -> str:
+    """The media file's URL relative to a page written at `page`."""
+    relative = Path(os.path.relpath(Path(media).resolve(), Path(page).resolve().parent)).as_posix()
+    return quote(relative)
+
+
+def editor_text(text: str, fmt: SubtitleFormat) -> str:
+    """Cue text as the editor sees it: inline tags kept as written, WebVTT character
+    references decoded (the page escapes them again on save).
+
+    >>> editor_text("<i>tea</i> &amp; &lt;toast&gt;", "vtt")
+    '<i>tea</i> & <toast>'
+    """
+    if fmt != "vtt":
+        return text
+    pieces = _TAG_SPLIT.split(text)  # odd positions are tags
+    return "".join(piece if n % 2 else html.unescape(piece) for n, piece in enumerate(pieces))
+
+
+def waveform(media: Path) -> np.ndarray | None:
+    """The peak envelope of the media's default audio stream; None when it has no audio.
+
+    Raises:
+        MediaError: the file is not media ffmpeg can decode.
+    """
+    info = probe(media)
+    if not info.audio_streams:
+        return None
+    stream = info.choose_stream(None)
+    chunks = decode_chunks(media, stream, sample_rate=_WAVEFORM_RATE, expected_ms=info.duration_ms)
+    return peak_envelope(chunks, sample_rate=_WAVEFORM_RATE, hop_ms=WAVEFORM_HOP_MS)
 
 
 def _caption(event: Mapping[str, Any]) -> str:
@@ -160,17 +229,24 @@ def _caption(event: Mapping[str, Any]) -> str:
 
 
 def _curves(sidecar: Mapping[str, Any], concepts: set[str]) -> dict[str, Any]:
-    """Score curves of the concepts that produced events, the strongest _MAX_CURVES of them."""
+    """Score curves of every concept that produced an event (kept or dropped), strongest first
+    (they get the palette's most distinct colours), each as base64 of uint8 (score × 255)."""
     scores = sidecar.get("scores") or {}
     curves = scores.get("concepts", {})
     wanted = sorted(
-        (name for name in curves if name in concepts), key=lambda name: -max(curves[name], default=0)
+        (name for name in curves if name in concepts), key=lambda name: (-max(curves[name], default=0), name)
     )
     return {
         "hop_ms": scores.get("hop_ms", 0),
         "patch_ms": scores.get("patch_ms", 0),
-        "concepts": {name: curves[name] for name in sorted(wanted[:_MAX_CURVES])},
+        "order": wanted,
+        "concepts": {name: _bytes64(curves[name]) for name in wanted},
     }
+
+
+def _bytes64(values: Sequence[float]) -> str:
+    quantised = np.clip(np.round(np.asarray(values, dtype=np.float64) * 255), 0, 255).astype(np.uint8)
+    return base64.b64encode(quantised.tobytes()).decode("ascii")
 
 
 def json_for_script(value: object) -> str:
@@ -201,6 +277,7 @@ def render_page(data: Mapping[str, Any]) -> str:
             f"script-src '{_hash(script)}'",
             f"style-src '{_hash(style)}'",
             "media-src 'self' file: blob:",
+            "connect-src 'self'" if data.get("save") else "connect-src 'none'",
             "img-src data:",
             "base-uri 'none'",
             "form-action 'none'",
@@ -221,4 +298,5 @@ def build_page(media: Path, page: Path, *, captions: Path | None = None, sidecar
         MediaError: the media file is missing.
         SubtitleError: the caption file or sidecar cannot be read.
     """
-    return render_page(page_data(load_inputs(media, captions, sidecar), page))
+    inputs = load_inputs(media, captions, sidecar)
+    return render_page(page_data(inputs, media_link(inputs.media, page), waveform=waveform(inputs.media)))

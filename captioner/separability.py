@@ -352,7 +352,8 @@ def separability_table(report: SeparabilityReport) -> str:
     lines[1:1] = [rule]
     lines[-1:-1] = [rule]
     lines.append(
-        f"{report.files} file(s), {report.patches} patches; d' of the balanced mean is taken from the balanced AUC"
+        f"{report.files} file(s), {report.patches} patches; d' of the balanced mean is taken from the "
+        "balanced AUC"
     )
     return "\n".join(lines)
 

@@ -17,6 +17,7 @@ from typing import Any, Literal
 import yaml
 
 from .errors import StyleError
+from .vocabulary import ConceptStyle
 
 
 @dataclass(frozen=True, slots=True)
@@ -78,6 +79,7 @@ class Selection:
     evidence_gate: bool = True  # a sound claim needs signal energy at that time
     min_level_db: float = -55.0  # quieter than this is near-silence
     min_contrast_db: float = 6.0  # event level above the local noise floor (quietest surroundings)
+    opening_ms: int = 1000  # a lasting sound starting this early needs no contrast (0 = off)
     safety_confidence: float = (
         0.5  # a priority-5 sound this sure needs no contrast, only signal (1 = no exemption)
     )
@@ -131,8 +133,10 @@ class Style:
     detection: Detection = field(default_factory=Detection)
     selection: Selection = field(default_factory=Selection)
     merge: Merge = field(default_factory=Merge)
+    vocabulary: tuple[ConceptStyle, ...] = ()  # house wording, priorities and bans per concept
 
 
+_CONCEPT_FIELDS = ("wording", "noun", "priority", "banned")
 _SECTIONS = {
     "wording": Wording,
     "layout": Layout,
@@ -181,6 +185,7 @@ _RANGES: dict[str, tuple[float, float]] = {
     "min_level_db": (-120.0, 0.0),
     "min_contrast_db": (-60.0, 60.0),
     "safety_confidence": (0.0, 1.0),
+    "opening_ms": (0, 10000),
     "generic_confidence": (0.0, 1.0),
 }
 
@@ -224,14 +229,19 @@ def style_from_mapping(data: Any, *, source: str = "style", default_name: str = 
         raise StyleError(
             source, "a style must be a YAML mapping of sections", "see `captioner styles` for an example"
         )
-    unknown = set(data) - set(_SECTIONS) - {"name", "description"}
+    unknown = set(data) - set(_SECTIONS) - {"name", "description", "vocabulary"}
     if unknown:
         raise StyleError(
-            source, f"unknown section(s) {', '.join(sorted(unknown))}", f"use {', '.join(_SECTIONS)}"
+            source,
+            f"unknown section(s) {', '.join(sorted(unknown))}",
+            f"use {', '.join(_SECTIONS)}, vocabulary",
         )
     sections = {name: _section(source, name, cls, data.get(name) or {}) for name, cls in _SECTIONS.items()}
     style = Style(
-        name=str(data.get("name", default_name)), description=str(data.get("description", "")), **sections
+        name=str(data.get("name", default_name)),
+        description=str(data.get("description", "")),
+        vocabulary=_house_vocabulary(source, data.get("vocabulary") or {}),
+        **sections,
     )
     _check_consistency(source, style)
     return style
@@ -251,6 +261,67 @@ def _section(source: str, name: str, cls: type, values: Any) -> Any:
     for key, value in values.items():
         _check_value(source, f"{name}.{key}", hints[key], value)
     return cls(**values)
+
+
+def _house_vocabulary(source: str, values: Any) -> tuple[ConceptStyle, ...]:
+    """The `vocabulary` section: concept id -> {wording: [bracketed, capitals], noun, priority, banned}.
+
+    Concept ids are checked against the model pack's vocabulary when a run starts.
+    """
+    if not isinstance(values, dict):
+        raise StyleError(
+            source, "section vocabulary must map concept ids to changes", "e.g. rain: {priority: 3}"
+        )
+    changes = []
+    for concept, spec in values.items():
+        label = f"vocabulary.{concept}"
+        if not isinstance(spec, dict) or not spec:
+            raise StyleError(
+                source, f"{label} must be a mapping of changes", f"give one of {', '.join(_CONCEPT_FIELDS)}"
+            )
+        unknown = sorted(set(spec) - set(_CONCEPT_FIELDS))
+        if unknown:
+            raise StyleError(
+                source,
+                f"unknown field(s) {', '.join(f'{label}.{k}' for k in unknown)}",
+                f"{label} takes {', '.join(_CONCEPT_FIELDS)}",
+            )
+        wording = spec.get("wording")
+        if wording is not None and not (
+            isinstance(wording, list)
+            and len(wording) == 2
+            and all(isinstance(w, str) and w.strip() for w in wording)
+        ):
+            raise StyleError(
+                source,
+                f"{label}.wording={wording!r} is not two texts",
+                "write [bracket wording, capitals wording]",
+            )
+        priority = spec.get("priority")
+        if priority is not None and (
+            isinstance(priority, bool) or not isinstance(priority, int) or not 1 <= priority <= 5
+        ):
+            raise StyleError(
+                source, f"{label}.priority={priority!r} is outside 1..5", "use a whole number 1..5"
+            )
+        noun, banned = spec.get("noun"), spec.get("banned", False)
+        if noun is not None and not (isinstance(noun, str) and noun.strip()):
+            raise StyleError(
+                source, f"{label}.noun={noun!r} must be a text", "name the sound, e.g. noun: rain"
+            )
+        if not isinstance(banned, bool):
+            raise StyleError(source, f"{label}.banned={banned!r} must be a bool", "use true or false")
+        changes.append(
+            ConceptStyle(
+                str(concept),
+                wording[0] if wording else None,
+                wording[1] if wording else None,
+                noun,
+                priority,
+                banned,
+            )
+        )
+    return tuple(changes)
 
 
 def _check_value(source: str, label: str, hint: Any, value: Any) -> None:
@@ -296,7 +367,8 @@ def _check_consistency(source: str, style: Style) -> None:
     if layout.min_duration_ms > layout.max_duration_ms:
         raise StyleError(
             source,
-            f"layout.min_duration_ms={layout.min_duration_ms} exceeds max_duration_ms={layout.max_duration_ms}",
+            f"layout.min_duration_ms={layout.min_duration_ms} exceeds "
+            f"max_duration_ms={layout.max_duration_ms}",
             "make the minimum smaller",
         )
     if (
@@ -304,7 +376,8 @@ def _check_consistency(source: str, style: Style) -> None:
     ):  # a moved sound cue would lag its sound beyond the tolerance
         raise StyleError(
             source,
-            f"selection.gap_shift_ms={selection.gap_shift_ms} exceeds layout.sync_tolerance_ms={layout.sync_tolerance_ms}",
+            f"selection.gap_shift_ms={selection.gap_shift_ms} exceeds "
+            f"layout.sync_tolerance_ms={layout.sync_tolerance_ms}",
             "make the gap move at most the sync tolerance",
         )
 

@@ -83,9 +83,9 @@ class Summary:
     def line(self) -> str:
         kept = self.kept_unchanged + self.kept_edited + self.kept_added
         text = (
-            f"kept all {kept} cue(s) of your file ({self.kept_edited} edited, {self.kept_added} added by hand), "
-            f"respected {self.deleted} deletion(s); added {self.new_written} new machine cue(s) where your file had none, "
-            f"{self.new_skipped} left out where you had worked"
+            f"kept all {kept} cue(s) of your file ({self.kept_edited} edited, {self.kept_added} added by "
+            f"hand), respected {self.deleted} deletion(s); added {self.new_written} new machine cue(s) "
+            f"where your file had none, {self.new_skipped} left out where you had worked"
         )
         if self.renamed:
             text += f"; gave {self.renamed} repeated cue identifier(s) a free one"

@@ -6,14 +6,14 @@ every class of the pack must appear in it exactly once.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from enum import Enum
 from pathlib import Path
 from typing import Any
 
 import yaml
 
-from .errors import PackError
+from .errors import PackError, StyleError
 
 
 class Kind(str, Enum):
@@ -40,6 +40,8 @@ class ClassEntry:
     priority: int  # 1 (trivial) .. 5 (safety alert)
     parent: str | None
     generic: bool = False  # the wording names no source ("beeping"); a specific sound of the moment says more
+    noun: str = ""  # the sound as a noun, for its end cue ("rain" -> "[rain stops]")
+    same_sound: tuple[str, ...] = ()  # concepts naming the same sound in other words ("rain" ~ "water")
 
 
 @dataclass(frozen=True, slots=True)
@@ -57,6 +59,54 @@ class Vocabulary:
 
     def indices(self, kind: Kind) -> list[int]:
         return [e.index for e in self.entries if e.kind is kind]
+
+
+@dataclass(frozen=True, slots=True)
+class ConceptStyle:
+    """A house style's changes to one concept; None keeps the vocabulary's own value."""
+
+    concept: str
+    phrase: str | None = None  # bracket wording for every class of the concept
+    phrase_present: str | None = None  # capitals wording
+    noun: str | None = None  # end-cue noun
+    priority: int | None = None
+    banned: bool = False  # never captioned
+
+
+def house_vocabulary(vocabulary: Vocabulary, changes: tuple[ConceptStyle, ...], source: str) -> Vocabulary:
+    """The vocabulary with a style's house wording, priorities and bans applied.
+
+    Raises:
+        StyleError: a change names a concept the vocabulary does not have.
+    """
+    if not changes:
+        return vocabulary
+    known = vocabulary.concepts()
+    unknown = sorted(c.concept for c in changes if c.concept not in known)
+    if unknown:
+        raise StyleError(
+            source,
+            f"vocabulary.{unknown[0]} is not a concept of the model pack's vocabulary",
+            f"use a concept id such as {', '.join(list(known)[:4])} (see the pack's vocabulary file)",
+        )
+    by_concept = {c.concept: c for c in changes}
+    entries = []
+    for entry in vocabulary.entries:
+        change = by_concept.get(entry.concept)
+        if change is None:
+            entries.append(entry)
+            continue
+        entries.append(
+            replace(
+                entry,
+                phrase=change.phrase or entry.phrase,
+                phrase_present=change.phrase_present or entry.phrase_present,
+                noun=change.noun or entry.noun,
+                priority=change.priority or entry.priority,
+                kind=Kind.IGNORE if change.banned else entry.kind,
+            )
+        )
+    return Vocabulary(tuple(entries))
 
 
 def load_vocabulary(path: Path, labels: tuple[str, ...]) -> Vocabulary:
@@ -85,10 +135,14 @@ def load_vocabulary(path: Path, labels: tuple[str, ...]) -> Vocabulary:
                     path, f"class {label!r} is mapped twice ({by_label[label][0]} and {concept})", "keep one"
                 )
             if not (
-                isinstance(wording, list) and len(wording) == 2 and all(isinstance(w, str) for w in wording)
+                isinstance(wording, list)
+                and len(wording) in (2, 3)
+                and all(isinstance(w, str) and w.strip() for w in wording)
             ):
                 raise PackError(
-                    path, f"class {label!r} needs [bracket wording, capitals wording]", "fix the entry"
+                    path,
+                    f"class {label!r} needs [bracket wording, capitals wording] and optionally its noun",
+                    "fix the entry",
                 )
             by_label[label] = (str(concept), spec, wording)
     missing = [label for label in labels if label not in by_label]
@@ -124,7 +178,32 @@ def load_vocabulary(path: Path, labels: tuple[str, ...]) -> Vocabulary:
         generic = spec.get("generic", False)
         if not isinstance(generic, bool):
             raise PackError(path, f"concept {concept!r} has generic={generic!r}", "use true or false")
+        noun = wording[2] if len(wording) == 3 else spec.get("noun", "")
+        if not isinstance(noun, str):
+            raise PackError(path, f"concept {concept!r} has noun={noun!r}", "use the sound's name as text")
         entries.append(
-            ClassEntry(index, label, concept, wording[0], wording[1], kind, priority, parent, generic)
+            ClassEntry(
+                index,
+                label,
+                concept,
+                wording[0],
+                wording[1],
+                kind,
+                priority,
+                parent,
+                generic,
+                noun,
+                _same_sound(path, concept, spec.get("same_sound", []), data),
+            )
         )
     return Vocabulary(tuple(entries))
+
+
+def _same_sound(path: Path, concept: str, names: Any, concepts: dict[str, Any]) -> tuple[str, ...]:
+    if not isinstance(names, list) or not all(isinstance(n, str) and n in concepts for n in names):
+        raise PackError(
+            path,
+            f"concept {concept!r} has same_sound={names!r}",
+            "list concepts of this file, e.g. same_sound: [water]",
+        )
+    return tuple(names)

@@ -43,6 +43,8 @@ class Job:
     pack: str  # pack name or manifest path
     cache: str | None  # pack cache folder; None = the worker's own default
     dialogue: str | None = None  # subtitle file whose cues mark dialogue
+    audio_stream: str | None = None  # index, language or title words (None: the default stream)
+    dialogue_language: str | None = None  # which embedded subtitle stream marks dialogue
 
 
 @dataclass(frozen=True, slots=True)
@@ -58,6 +60,7 @@ class Drafted:
     load_s: float = 0.0  # model loading paid by this job (0 when the worker was warm)
     worker: str = ""
     pack_version: str = ""
+    notice: str = ""  # one line for the user, e.g. the chosen audio stream gave no cues
 
 
 _PACKS: dict[tuple[str, str | None], packs.LoadedPack] = {}
@@ -124,6 +127,8 @@ def draft(job: Job) -> Drafted:
             job.style,
             dialogue=dialogue_spans(track.cues) if track else None,
             dialogue_source=dialogue_name or "classifier",
+            audio_stream=job.audio_stream,
+            dialogue_language=job.dialogue_language,
         )
         drafts = pipeline.draft_outputs(
             result, pack.vocabulary, job.fmt, merge_with=track, dialogue_name=dialogue_name
@@ -141,6 +146,7 @@ def draft(job: Job) -> Drafted:
             load_s,
             worker,
             pack.manifest.version,
+            result.empty_stream_notice(),
         )
     except CaptionerError as exc:
         return Drafted(
@@ -200,12 +206,14 @@ def dispatch(
                         broken = True
                         yield Drafted(
                             job.relative,
-                            f"{job.media}: the worker process stopped while captioning it (out of memory, or a crash); run again with --retry-failed",
+                            f"{job.media}: the worker process stopped while captioning it (out of memory, "
+                            "or a crash); run again with --retry-failed",
                         )
                     except Exception as exc:
                         yield Drafted(
                             job.relative,
-                            f"{job.media}: the worker failed ({type(exc).__name__}: {exc}); run again with --retry-failed",
+                            f"{job.media}: the worker failed ({type(exc).__name__}: {exc}); run again with "
+                            "--retry-failed",
                         )
                 if broken:
                     close(interrupted=True)

@@ -29,6 +29,22 @@ def test_missing_input(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> No
     assert "nope.mp4: file not found" in _error_line(capsys)
 
 
+@pytest.mark.parametrize("name", ["nope.mp4", "fake.mkv"])
+def test_bad_input_is_reported_before_the_model_pack_is_fetched(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch, name: str
+) -> None:
+    # A typo in the input name must not start a download of the model pack.
+    from captioner import packs
+
+    fetched: list[str] = []
+    monkeypatch.setattr(packs, "load_pack", lambda name, **_: fetched.append(name))
+    if name == "fake.mkv":
+        (tmp_path / name).write_bytes(b"\x00" * 1000)
+    assert main(["caption", str(tmp_path / name), "--quiet"]) == 2
+    assert name in _error_line(capsys)
+    assert fetched == []
+
+
 def test_not_media(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     fake = tmp_path / "fake.mkv"
     fake.write_bytes(b"\x00" * 1000)

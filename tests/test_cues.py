@@ -120,7 +120,7 @@ def test_gaps_between_cues_are_closed_or_at_least_a_second() -> None:
 def test_end_cue_for_a_long_continuous_sound_only() -> None:
     rain = event("r", 1000, 40000, "rain falling", "rain falls", Kind.AMBIENCE)
     cues, _ = cues_of([rain])
-    assert [c.text for c in cues] == ["[rain falling]", "[rain falling stops]"]
+    assert [c.text for c in cues] == ["[rain falling]", "[rain stops]"]  # the trade names the sound: DCMP
     assert cues[1].start_ms == 40000
     assert [c.text for c in cues_of([rain], replace(BRACKETS, "wording", end_cues=False))[0]] == [
         "[rain falling]"
@@ -186,3 +186,22 @@ def test_every_writer_of_identifiers_uses_the_same_suffixes() -> None:
     split = [Cue(0, 1000, ("[x]",), ("e1",)), Cue(1000, 2000, ("[x]",), ("e1",))]
     recorded = [c.identifier for c in webvtt.from_buffer(io.StringIO(recorded_vtt(split, "")))]
     assert recorded == ["e1", "e1-2"]
+
+
+def test_a_continuing_sound_is_not_repeated_in_the_next_cue() -> None:
+    # DCMP Captioning Key: a continuing sound is not re-captioned. A new sound 1.7 s into a
+    # lasting one used to give "[hens clucking]", then "[hens clucking]" / "[phone keypad beeping]".
+    hens = event("h", 0, 8000, "hens clucking", "hens cluck", Kind.CONTINUOUS)
+    keypad = event("k", 1700, 2500, "phone keypad beeping", "phone keypad beeps")
+    cues, dropped = cues_of([hens, keypad])
+    assert [c.lines for c in cues] == [("[hens clucking]",), ("[phone keypad beeping]",)] and not dropped
+    assert cues[0].end_ms == cues[1].start_ms == 1700
+    for earlier, later in itertools.pairwise(cues):
+        assert not set(earlier.lines) & set(later.lines)
+
+
+def test_one_line_per_sound_in_a_shared_cue() -> None:
+    first = event("a", 0, 3000, "crowd murmuring", "crowd murmurs", Kind.CONTINUOUS)
+    again = event("b", 500, 3000, "crowd murmuring", "crowd murmurs", Kind.CONTINUOUS)
+    (cue,), _ = cues_of([first, again])
+    assert cue.lines == ("[crowd murmuring]",) and cue.event_ids == ("a", "b")

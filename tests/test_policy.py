@@ -442,3 +442,45 @@ def test_attention_sounds_under_dialogue_need_less_confidence() -> None:
     kept, rules = run([knock, dog], settings, talk)
     assert kept == {"k"} and rules["d"] == "dialogue"
     assert run([knock, dog], replace(settings, dialogue_alert_confidence=0.7), talk)[0] == set()
+
+
+def test_a_music_bed_playing_from_the_first_second_needs_no_contrast() -> None:
+    # Music from 0:00 has no quieter floor before it: its surroundings are the music itself
+    # (+4.9 dB was measured on such a bed). Later the same contrast still fails the gate,
+    # and near-silence never passes, from the start or not.
+    bed = replace(event("m", "music", 0, 9000, kind=Kind.MUSIC, level_db=-25.0), floor_db=-29.9)
+    later = replace(event("n", "music", 30000, 39000, kind=Kind.MUSIC, level_db=-25.0), floor_db=-29.9)
+    hush = replace(event("h", "rain", 0, 9000, kind=Kind.AMBIENCE, level_db=-70.0), floor_db=-72.0)
+    knock = replace(event("k", "knock", 0, 500, level_db=-25.0), floor_db=-29.9)  # short: has a floor
+    gate = replace(OPEN, evidence_gate=True, min_contrast_db=6.0, safety_confidence=1.0)
+    kept, rules = run([bed, later, hush, knock], gate)
+    assert kept == {"m"}
+    assert rules["n"] == rules["h"] == rules["k"] == "evidence"
+    assert run([bed], replace(gate, opening_ms=0))[0] == set()  # the exemption switches off
+
+
+def test_near_synonym_concepts_of_one_moment_are_one_sound() -> None:
+    # "[rain falling]" / "[water flowing]" in one cue said one sound twice; the vocabulary
+    # marks such concepts `same_sound`, and the surer one names the sound.
+    rain = replace(event("r", "rain", 0, 9000, 0.7, kind=Kind.AMBIENCE), same_sound=("water",))
+    water = event("w", "water", 500, 9000, 0.6, kind=Kind.AMBIENCE)
+    clapping = replace(event("c", "clapping", 20000, 24000, 0.5), same_sound=("applause",))
+    applause = event("a", "applause", 20000, 25000, 0.8, kind=Kind.CONTINUOUS, parent="crowd")
+    elsewhere = event("x", "water", 40000, 45000, 0.6, kind=Kind.AMBIENCE)  # not the same moment
+    events = [rain, water, clapping, applause, elsewhere]
+    kept, rules = run(events, replace(OPEN, sibling_redundancy=True))
+    assert kept == {"r", "a", "x"} and rules["w"] == rules["c"] == "sibling"
+    assert run(events, OPEN)[0] == {"r", "w", "c", "a", "x"}
+
+
+def test_a_same_sound_concept_never_hides_a_more_important_one() -> None:
+    engine = event("v", "road_vehicle", 0, 5000, 0.9, kind=Kind.CONTINUOUS)
+    siren = replace(
+        event("s", "police_siren", 0, 5000, 0.6, kind=Kind.CONTINUOUS, priority=5),
+        same_sound=("road_vehicle",),
+    )
+    kept, rules = run([engine, siren], replace(OPEN, sibling_redundancy=True))
+    assert kept == {"v", "s"}  # the surer engine does not drop the siren
+    louder_siren = replace(siren, peak_score=0.95)
+    kept, rules = run([engine, louder_siren], replace(OPEN, sibling_redundancy=True))
+    assert kept == {"s"} and rules["v"] == "sibling"

@@ -165,8 +165,9 @@ def test_update_keeps_an_untouched_machine_cue_beside_a_hand_cue_and_unique_ids(
     machine = cues(sounds)
     # A hand cue that starts inside the untouched second machine cue, and a copy of the
     # first cue block, identifier included, pasted at the end (after the second cue).
-    start = machine[1].start_in_seconds + 0.5
-    hand = f"{formats.webvtt.timestamp(round(start * 1000))} --> {formats.webvtt.timestamp(round(start * 1000) + 1500)}\n[crowd cheering]"
+    start = round(machine[1].start_in_seconds * 1000) + 500
+    stamp = formats.webvtt.timestamp
+    hand = f"{stamp(start)} --> {stamp(start + 1500)}\n[crowd cheering]"
     copied = (
         cue_block(text, 0).replace(machine[0].start, "00:00:14.000").replace(machine[0].end, "00:00:15.000")
     )
@@ -457,8 +458,10 @@ import distributed
 from captioner import library
 from captioner.style import load_style
 if __name__ == "__main__":
-    with distributed.LocalCluster(n_workers=2, processes=True, threads_per_worker=1, host="127.0.0.1", dashboard_address=None) as cluster:
-        library.run_batch(library.BatchOptions(folder=Path(sys.argv[1]), style=load_style("brackets"), cluster=cluster.scheduler_address))
+    options = dict(n_workers=2, threads_per_worker=1, host="127.0.0.1", dashboard_address=None)
+    with distributed.LocalCluster(processes=True, **options) as cluster:
+        style, address = load_style("brackets"), cluster.scheduler_address
+        library.run_batch(library.BatchOptions(folder=Path(sys.argv[1]), style=style, cluster=address))
 """
 
 

@@ -57,7 +57,8 @@ def test_track_shape_timing_and_padding(pack: packs.LoadedPack, tmp_path: Path) 
 
 
 class _LevelMeter:
-    """A stand-in classifier whose one score is the patch's mean log-mel value, squashed; records batch sizes."""
+    """A stand-in classifier whose one score is the patch's mean log-mel value, squashed;
+    records batch sizes."""
 
     def __init__(self) -> None:
         self.batches: list[int] = []

@@ -235,11 +235,15 @@ def test_update_keeps_hand_work_on_a_generated_track(
         f"{edited.identifier}\n{edited.start} --> {edited.end}\n[chime from the hallway]",
     )
     text = _edit(text, f"{deleted.identifier}\n{deleted.start} --> {deleted.end}\n{deleted.raw_text}\n\n", "")
-    # a cue the earlier run did not write at all (neither in the file nor in its record): the new run may add it
+    # a cue the earlier run did not write at all (neither in the file nor in its record): the new run may add
+    # it
     text = _edit(text, f"{vanished.identifier}\n{vanished.start} --> {vanished.end}\n{vanished.raw_text}", "")
     text = re.sub(rf"^cue {re.escape(vanished.identifier)} .*\n", "", text, flags=re.MULTILINE)
     gap_ms = round(float(gap_start.split(":")[-1]) * 1000) + 60_000 * int(gap_start.split(":")[-2])
-    added = f"\n\n{update.webvtt.timestamp(gap_ms + 100)} --> {update.webvtt.timestamp(gap_ms + 700)}\n[footsteps, added by hand]\n"
+    added = (
+        f"\n\n{update.webvtt.timestamp(gap_ms + 100)} --> "
+        f"{update.webvtt.timestamp(gap_ms + 700)}\n[footsteps, added by hand]\n"
+    )
     out.write_text(text.rstrip("\n") + added)
     hand_file = out.read_text()
 

@@ -65,8 +65,9 @@ def write_atomic(path: Path, text: str, *, force: bool = False) -> None:
 def write_together(files: Sequence[tuple[Path, str | bytes]]) -> None:
     """Put several files in place as one step: all or none of them land.
 
-    Every text (UTF-8; bytes as they are) goes to a hidden temporary file beside its target first (a full disk fails
-    here, before any target changes); then each is renamed over its target, with a hard link
+    Every text (UTF-8; bytes as they are) goes to a hidden temporary file beside its target
+    first (a full disk fails here, before any target changes); then each is renamed over its
+    target, with a hard link
     to the old file kept aside until all renames are done, so a failure puts every old file
     back. Existing targets are replaced: the caller has decided they may be. Nothing is left
     behind but the targets, unless the process is killed (then only hidden `.NAME.*.tmp`

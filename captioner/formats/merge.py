@@ -175,7 +175,8 @@ def merge_table(track: MergedTrack) -> str:
     for o in track.outcomes:
         placed = "-" if o.placed_start_ms is None else vtt_writer.timestamp(o.placed_start_ms)[3:]
         rows.append(
-            f"{','.join(o.event_ids)[:12]:<12} {vtt_writer.timestamp(o.start_ms)[3:]:>9} {placed:>9}  {o.action:<10} {o.text[:30]} / {o.detail}"
+            f"{','.join(o.event_ids)[:12]:<12} {vtt_writer.timestamp(o.start_ms)[3:]:>9} {placed:>9}  "
+            f"{o.action:<10} {o.text[:30]} / {o.detail}"
         )
     counts = {
         action: sum(o.action == action for o in track.outcomes)
@@ -372,7 +373,8 @@ class _Board:
                         return outcome(
                             "moved",
                             slot,
-                            f"shortened to end at {vtt_writer.timestamp(slot[1])}, in the gap before the dialogue",
+                            f"shortened to end at {vtt_writer.timestamp(slot[1])}, in the gap before the "
+                            "dialogue",
                         )
                     return outcome(
                         "moved", slot, f"moved {slot[0] - piece.start_ms:+d} ms into a dialogue gap"
@@ -433,9 +435,15 @@ class _Board:
             if len(lines) > self.layout.max_lines:
                 why = f"with the dialogue it would make {len(lines)} lines (limit {self.layout.max_lines})"
             elif longest > self.layout.max_chars_per_line:
-                why = f"with the dialogue it would have a {longest}-character line (limit {self.layout.max_chars_per_line})"
+                why = (
+                    f"with the dialogue it would have a {longest}-character line (limit "
+                    f"{self.layout.max_chars_per_line})"
+                )
             elif d.end_ms - d.start_ms < read:
-                why = f"with the dialogue it needs {read} ms on screen, the cue lasts {d.end_ms - d.start_ms} ms"
+                why = (
+                    f"with the dialogue it needs {read} ms on screen, the cue lasts {d.end_ms - d.start_ms} "
+                    "ms"
+                )
             else:
                 return i, ""
         return None, why

@@ -7,9 +7,9 @@ import re
 from collections.abc import Mapping
 from typing import Any
 
+from ..captioned import Captioned
 from ..cues import event_text
 from ..events import concept_curves
-from ..pipeline import Captioned
 from ..vocabulary import Vocabulary
 
 SIDECAR_VERSION = 1
@@ -34,6 +34,7 @@ def sidecar(result: Captioned, vocabulary: Vocabulary) -> dict[str, Any]:
         "pack": result.pack_name,
         "style": result.style.name,
         "duration_ms": result.track.duration_ms,
+        "audio_stream": _stream(result),
         "dialogue": {
             "source": result.dialogue_source,
             "spans": [[s.start_ms, s.end_ms] for s in result.dialogue],
@@ -64,6 +65,23 @@ def sidecar(result: Captioned, vocabulary: Vocabulary) -> dict[str, Any]:
             for c in result.cues
         ],
         "scores": _curves(result, vocabulary),
+    }
+
+
+def _stream(result: Captioned) -> dict[str, Any] | None:
+    """The audio stream captioned, as the file describes it (None for hand-made score tracks)."""
+    stream = result.stream
+    if stream is None:
+        return None
+    return {
+        "index": stream.index,
+        "of": len(result.streams),
+        "codec": stream.codec,
+        "channels": stream.channels,
+        "language": stream.language,
+        "title": stream.title,
+        "default": stream.is_default,
+        "start_ms": stream.start_ms,
     }
 
 

@@ -166,7 +166,8 @@ def dialogue_spans(cues: Sequence[SubtitleCue]) -> tuple[Span, ...]:
     for cue in sorted(cues, key=lambda c: c.start_ms):
         if cue.end_ms <= cue.start_ms:
             warnings.warn(
-                f"{cue.location or 'dialogue'}: cue has no duration (it ends when it starts), so it counts as no dialogue "
+                f"{cue.location or 'dialogue'}: cue has no duration (it ends when it starts), so it counts "
+                "as no dialogue "
                 "time; give it an end time after its start to silence this",
                 stacklevel=2,
             )
@@ -283,7 +284,8 @@ def _locate_vtt_error(text: str) -> tuple[int, str]:
     arrow = arrows[0]
     return (
         first + arrow + 1,
-        f"not a valid WebVTT cue ({block[arrow].strip()[:60]!r}: check timestamps hh:mm:ss.ttt and cue settings)",
+        f"not a valid WebVTT cue ({block[arrow].strip()[:60]!r}: check timestamps hh:mm:ss.ttt and cue "
+        "settings)",
     )
 
 

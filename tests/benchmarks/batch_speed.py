@@ -146,14 +146,17 @@ def main() -> None:
     one = build_library(work / "tiny-one", tiny, 1)
 
     print(
-        f"machine: {platform.machine()}, {os.cpu_count()} cores, Python {platform.python_version()}; load average before: {uptime()}"
+        f"machine: {platform.machine()}, {os.cpu_count()} cores, Python {platform.python_version()}; load "
+        f"average before: {uptime()}"
     )
     audio_hours = args.files * args.minutes / 60
     print(
-        f"\nlibrary: {args.files} files x {args.minutes} min AAC-in-MP4 = {audio_hours * 60:.0f} min of audio\n"
+        f"\nlibrary: {args.files} files x {args.minutes} min AAC-in-MP4 = {audio_hours * 60:.0f} min of "
+        "audio\n"
     )
     print(
-        "| workers | wall s (whole command) | audio h per wall h | speed-up | CPU s | cores busy | model load s per worker |"
+        "| workers | wall s (whole command) | audio h per wall h | speed-up | CPU s | cores busy | model "
+        "load s per worker |"
     )
     print("|---|---|---|---|---|---|---|")
     best: dict[int, tuple[float, float]] = {}
@@ -170,7 +173,8 @@ def main() -> None:
         loads = load_seconds(work / f"out-{workers}")
         load = f"{sum(loads) / len(loads):.2f}" if loads else "-"
         print(
-            f"| {workers} | {wall:.1f} | {rate:.0f} | {rate / base:.2f}x | {cpu:.1f} | {cpu / wall:.2f} | {load} |",
+            f"| {workers} | {wall:.1f} | {rate:.0f} | {rate / base:.2f}x | {cpu:.1f} | {cpu / wall:.2f} | "
+            f"{load} |",
             flush=True,
         )
 

@@ -79,20 +79,24 @@ def _cell(value: float | None, digits: int = 3, scale: float = 1.0) -> str:
 
 def quality_markdown(data: dict[str, Any]) -> str:
     lines = [
-        "| concept | events | found | cues | matched | precision | recall | F1 | cues per found event | onset error (s) |",
+        "| concept | events | found | cues | matched | precision | recall | F1 | cues per found event | "
+        "onset error (s) |",
         "|---|---:|---:|---:|---:|---:|---:|---:|---:|---:|",
     ]
     rows = [*data["concepts"].items(), ("**overall**", data["overall"])]
     for name, q in rows:
         lines.append(
-            f"| {name} | {q['events']} | {q['detected_events']} | {q['cues']} | {q['matched_cues']} | {_cell(q['precision'])} | {_cell(q['recall'])} | "
+            f"| {name} | {q['events']} | {q['detected_events']} | {q['cues']} | {q['matched_cues']} | "
+            f"{_cell(q['precision'])} | {_cell(q['recall'])} | "
             f"{_cell(q['f1'])} | {_cell(q['redundancy'], 2)} | {_cell(q['onset_error_ms'], 2, 1000)} |"
         )
     overall = data["overall"]
     lines.append("")
     lines.append(
-        f"False alarms: {overall['false_alarm_cues']} cue(s) in {data['truth_free_ms'] / 60000:.2f} min of clips without annotated sounds "
-        f"({_cell(overall['false_alarms_per_minute'], 2)} per minute); cues overlapping dialogue: {overall['cues_over_dialogue']}; "
+        f"False alarms: {overall['false_alarm_cues']} cue(s) in {data['truth_free_ms'] / 60000:.2f} min of "
+        "clips without annotated sounds "
+        f"({_cell(overall['false_alarms_per_minute'], 2)} per minute); cues overlapping dialogue: "
+        f"{overall['cues_over_dialogue']}; "
         f"cues naming no annotated concept: {data['unnamed_cues']}; collar {data['collar_ms'] / 1000:g} s."
     )
     return "\n".join(lines)
@@ -106,11 +110,13 @@ def scores_markdown(data: dict[str, Any]) -> str:
     for name, r in data["concepts"].items():
         d_text = _cell(r["d_prime"], 2) if r["d_prime"] is not None or r["auc"] is None else "∞"
         lines.append(
-            f"| {name} | {', '.join(r['score_concepts'])} | {r['positives']} | {_cell(r['auc'])} | {_cell(r['average_precision'])} | {d_text} |"
+            f"| {name} | {', '.join(r['score_concepts'])} | {r['positives']} | {_cell(r['auc'])} | "
+            f"{_cell(r['average_precision'])} | {d_text} |"
         )
     b = data["balanced"]
     lines.append(
-        f"| **class-balanced mean** | | | {_cell(b['auc'])} | {_cell(b['average_precision'])} | {_cell(b['d_prime'], 2)} |"
+        f"| **class-balanced mean** | | | {_cell(b['auc'])} | {_cell(b['average_precision'])} | "
+        f"{_cell(b['d_prime'], 2)} |"
     )
     return "\n".join(lines)
 

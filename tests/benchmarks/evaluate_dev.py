@@ -90,12 +90,12 @@ def write_captions(folder: Path, cues_by_stem: dict[str, tuple[Any, ...]]) -> No
 
 
 def caption_set(
-    eval_dir: Path, pack: packs.LoadedPack, style: Style
+    eval_dir: Path, pack: packs.LoadedPack, style: Style, media: str = "wav"
 ) -> tuple[dict[str, ScoreTrack], dict[str, tuple[Any, ...]], float]:
-    """Caption every devNN.wav through the real pipeline; tracks, cues and seconds spent."""
+    """Caption every devNN.wav (or .mp4) through the real pipeline; tracks, cues and seconds spent."""
     tracks, cues = {}, {}
     started = time.perf_counter()
-    for clip in sorted(eval_dir.glob("dev*.wav")):
+    for clip in sorted(eval_dir.glob(f"dev*.{media}")):
         result = pipeline.caption_file(clip, pack, style)
         tracks[clip.stem], cues[clip.stem] = result.track, result.cues
     return tracks, cues, time.perf_counter() - started
@@ -113,7 +113,8 @@ def _f(value: Any, digits: int = 3) -> str:
 
 def overall_row(name: str, o: dict[str, Any]) -> str:
     return (
-        f"| {name} | {_f(o['F1'])} | {_f(o['P'])} | {_f(o['R'])} | {o['events_hit']}/{o['events']} | {o['cues']} "
+        f"| {name} | {_f(o['F1'])} | {_f(o['P'])} | {_f(o['R'])} | {o['events_hit']}/{o['events']} | "
+        f"{o['cues']} "
         f"| {_f(o['onset_mae'], 2)} | {_f(o['false_alarms_per_dialogue_minute'], 2)} |"
     )
 
@@ -125,12 +126,16 @@ def concept_table(report: dict[str, Any]) -> str:
     ]
     for name, c in sorted(report["per_concept"].items()):
         lines.append(
-            f"| {name} | {c['events']} | {c['hit']} | {c['cues']} | {c['cues_tp']} | {_f(c['P'])} | {_f(c['R'])} | {_f(c['F1'])} | {_f(c['onset_mae'], 2)} |"
+            f"| {name} | {c['events']} | {c['hit']} | {c['cues']} | {c['cues_tp']} | {_f(c['P'])} | "
+            f"{_f(c['R'])} | {_f(c['F1'])} | {_f(c['onset_mae'], 2)} |"
         )
     return "\n".join(lines)
 
 
-HEADER = "| run | F1 | P | R | events found | cues | onset error (s) | false alarms / dialogue min |\n|---|---:|---:|---:|---:|---:|---:|---:|"
+HEADER = (
+    "| run | F1 | P | R | events found | cues | onset error (s) | false alarms / dialogue min "
+    "|\n|---|---:|---:|---:|---:|---:|---:|---:|"
+)
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -147,6 +152,9 @@ def main(argv: list[str] | None = None) -> int:
     )
     parser.add_argument("--hops", default="", help="also run these patch hops in ms, e.g. 480,240,160")
     parser.add_argument("--keep", type=Path, help="write the caption files of every run under this folder")
+    parser.add_argument(
+        "--media", choices=("wav", "mp4"), default="wav", help="which files of the set to caption"
+    )
     args = parser.parse_args(argv)
     eval_dir: Path = args.eval_dir
     if not (eval_dir / "score.py").is_file():
@@ -156,11 +164,12 @@ def main(argv: list[str] | None = None) -> int:
     style = load_style(args.style)
     work = args.keep or Path(tempfile.mkdtemp(prefix="captioner-eval-"))
 
-    tracks, cues, seconds = caption_set(eval_dir, pack, style)
+    tracks, cues, seconds = caption_set(eval_dir, pack, style, args.media)
     write_captions(work / "default", cues)
     report = score(eval_dir, work / "default")
     print(
-        f"## Default style `{style.name}`, patch hop {style.detection.patch_hop_ms} ms ({seconds:.1f} s for {len(tracks)} files)\n"
+        f"## Default style `{style.name}`, patch hop {style.detection.patch_hop_ms} ms ({seconds:.1f} s for "
+        f"{len(tracks)} files)\n"
     )
     print(HEADER)
     print(overall_row("default", report["overall"]))
@@ -178,7 +187,8 @@ def main(argv: list[str] | None = None) -> int:
 
     print("\n### Scoring: one pass or the mean over three input levels (whole pipeline)\n")
     print(
-        "| level spread (dB) | F1 | P | R | events found | cues | onset error (s) | false alarms / dialogue min | seconds for the set |"
+        "| level spread (dB) | F1 | P | R | events found | cues | onset error (s) | false alarms / dialogue "
+        "min | seconds for the set |"
     )
     print("|---:|---:|---:|---:|---:|---:|---:|---:|---:|")
     for spread in sorted({0.0, 3.0, style.detection.level_spread_db, 9.0}):
@@ -186,14 +196,16 @@ def main(argv: list[str] | None = None) -> int:
         _, spread_cues, spread_seconds = (
             (tracks, cues, seconds)
             if spread == style.detection.level_spread_db
-            else caption_set(eval_dir, pack, variant)
+            else caption_set(eval_dir, pack, variant, args.media)
         )
         folder = work / f"spread-{spread:g}"
         write_captions(folder, spread_cues)
         o = score(eval_dir, folder)["overall"]
         print(
-            f"| {spread:g} | {_f(o['F1'])} | {_f(o['P'])} | {_f(o['R'])} | {o['events_hit']}/{o['events']} | {o['cues']} "
-            f"| {_f(o['onset_mae'], 2)} | {_f(o['false_alarms_per_dialogue_minute'], 2)} | {spread_seconds:.1f} |",
+            f"| {spread:g} | {_f(o['F1'])} | {_f(o['P'])} | {_f(o['R'])} | {o['events_hit']}/{o['events']} "
+            f"| {o['cues']} "
+            f"| {_f(o['onset_mae'], 2)} | {_f(o['false_alarms_per_dialogue_minute'], 2)} | "
+            f"{spread_seconds:.1f} |",
             flush=True,
         )
 
@@ -201,16 +213,18 @@ def main(argv: list[str] | None = None) -> int:
     if hops:
         print("\n### Patch hop: timing accuracy against classifier cost (whole pipeline)\n")
         print(
-            "| hop (ms) | F1 | P | R | onset error (s) | seconds for the set |\n|---:|---:|---:|---:|---:|---:|"
+            "| hop (ms) | F1 | P | R | onset error (s) | seconds for the set "
+            "|\n|---:|---:|---:|---:|---:|---:|"
         )
         for hop in hops:
             variant = replace(style, "detection", patch_hop_ms=hop)
-            _, hop_cues, hop_seconds = caption_set(eval_dir, pack, variant)
+            _, hop_cues, hop_seconds = caption_set(eval_dir, pack, variant, args.media)
             folder = work / f"hop-{hop}"
             write_captions(folder, hop_cues)
             o = score(eval_dir, folder)["overall"]
             print(
-                f"| {hop} | {_f(o['F1'])} | {_f(o['P'])} | {_f(o['R'])} | {_f(o['onset_mae'], 2)} | {hop_seconds:.1f} |",
+                f"| {hop} | {_f(o['F1'])} | {_f(o['P'])} | {_f(o['R'])} | {_f(o['onset_mae'], 2)} | "
+                f"{hop_seconds:.1f} |",
                 flush=True,
             )
     print(f"\ncaption files: {work}")

@@ -249,7 +249,10 @@ def test_sound_identifiers_never_repeat_a_dialogue_identifier() -> None:
 
 
 def test_style_and_region_blocks_of_the_dialogue_are_carried_over() -> None:
-    text = "WEBVTT\n\nSTYLE\n::cue(.a) { color: lime }\n\nREGION\nid:r1\nwidth:40%\n\n00:00:01.000 --> 00:00:02.000 region:r1\n<c.a>Hi</c>\n"
+    text = (
+        "WEBVTT\n\nSTYLE\n::cue(.a) { color: lime }\n\nREGION\nid:r1\nwidth:40%\n\n00:00:01.000 --> "
+        "00:00:02.000 region:r1\n<c.a>Hi</c>\n"
+    )
     merged = merge_tracks(
         parse_subtitles(text, "vtt"), [sound(5000, 7000, "[door slams]")], style_for("brackets", "position")
     )
@@ -392,7 +395,8 @@ def layout_violations(merged: MergedTrack, style: Style, fmt: SubtitleFormat) ->
             elif 0 < gap < layout.min_gap_ms:
                 problems.append(f"{cue}: gap {gap} ms to {other}")
     for outcome in merged.outcomes:
-        # BBC §5.2-5.5 via the style: a placed sound (or the dialogue cue it joined) starts within the tolerance
+        # BBC §5.2-5.5 via the style: a placed sound (or the dialogue cue it joined) starts within the
+        # tolerance
         if (
             outcome.placed_start_ms is not None
             and abs(outcome.placed_start_ms - outcome.start_ms) > layout.sync_tolerance_ms
@@ -478,7 +482,10 @@ def test_a_long_generated_merge_keeps_every_limit_and_every_dialogue_cue(
 DIALOGUE = (
     "WEBVTT\n\n00:00:01.000 --> 00:00:04.000\n<i>Morning.</i>\n\n00:00:09.000 --> 00:00:12.000\nCoffee?\n"
 )
-SOUND = "WEBVTT\n\ne1\n00:00:02.000 --> 00:00:04.000\n[door slams]\n\ne2\n00:00:05.000 --> 00:00:07.000\n[dog barking]\n"
+SOUND = (
+    "WEBVTT\n\ne1\n00:00:02.000 --> 00:00:04.000\n[door slams]\n\ne2\n00:00:05.000 --> 00:00:07.000\n[dog "
+    "barking]\n"
+)
 
 
 def test_merge_command_writes_the_merged_track_and_never_touches_the_inputs(tmp_path: Path) -> None:

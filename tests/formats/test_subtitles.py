@@ -223,13 +223,19 @@ def test_plain_lines_remove_tags_and_decode_references() -> None:
 
 
 def test_parse_keeps_file_order_for_cues_with_equal_times() -> None:
-    text = "WEBVTT\n\n00:00:01.000 --> 00:00:02.000\nfirst\n\n00:00:01.000 --> 00:00:02.000\nsecond\n\n00:00:00.500 --> 00:00:03.000\nearlier\n"
+    text = (
+        "WEBVTT\n\n00:00:01.000 --> 00:00:02.000\nfirst\n\n00:00:01.000 --> "
+        "00:00:02.000\nsecond\n\n00:00:00.500 --> 00:00:03.000\nearlier\n"
+    )
     assert [c.text for c in parse_subtitles(text, "vtt").cues] == ["earlier", "first", "second"]
 
 
 def test_each_cue_knows_the_line_of_its_timing_line() -> None:
     # cue text holding an arrow, and even a line shaped like a timing line, is still text
-    text = "1\n00:00:01,000 --> 00:00:02,000\nrun --> now\n00:00:09,000 --> 00:00:10,000 is the clip\n\n2\n00:00:03,000 --> 00:00:04,000\nho\n"
+    text = (
+        "1\n00:00:01,000 --> 00:00:02,000\nrun --> now\n00:00:09,000 --> 00:00:10,000 is the "
+        "clip\n\n2\n00:00:03,000 --> 00:00:04,000\nho\n"
+    )
     assert len(list(srt.parse(text))) == 2  # the reference library reads two cues too
     assert [c.location for c in parse_subtitles(text, "srt", name="talk.srt").cues] == [
         "talk.srt, line 2",
@@ -249,11 +255,13 @@ def test_each_cue_knows_the_line_of_its_timing_line() -> None:
     [
         (
             "talk.vtt",
-            "WEBVTT\n\n00:00:01.000 --> 00:00:02.000\nHi\n\n00:00:03.000 --> 00:00:03.000\nBlink\n\n00:00:05.000 --> 00:00:06.000\nBye\n",
+            "WEBVTT\n\n00:00:01.000 --> 00:00:02.000\nHi\n\n00:00:03.000 --> "
+            "00:00:03.000\nBlink\n\n00:00:05.000 --> 00:00:06.000\nBye\n",
         ),
         (
             "talk.srt",
-            "1\n00:00:01,000 --> 00:00:02,000\nHi\n\n2\n00:00:03,000 --> 00:00:03,000\nBlink\n\n3\n00:00:05,000 --> 00:00:06,000\nBye\n",
+            "1\n00:00:01,000 --> 00:00:02,000\nHi\n\n2\n00:00:03,000 --> "
+            "00:00:03,000\nBlink\n\n3\n00:00:05,000 --> 00:00:06,000\nBye\n",
         ),
     ],
 )

@@ -1,0 +1,263 @@
+"""Concept heads: small learned layers over the classifier's embedding, one per concept.
+
+The classifier's own labels were not made for captions; a head per concept, trained on
+labelled recordings, reads the network's embedding instead. A head file (.npz, no pickles)
+holds for each concept a linear layer and a calibration of its raw output:
+
+    score = clip(-log10(share of held-out negative patches scoring as high) / DECADES, 0, 1)
+
+so a score means the same thing for every concept: 0.6 = one negative patch in a thousand
+scores this high, 0.8 = one in ten thousand. Heads may also name new concepts with their own
+wording (a user's own sounds); built-in heads refine concepts of the vocabulary.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from .errors import PackError
+from .vocabulary import ClassEntry, Kind, Vocabulary
+
+DECADES = 5.0  # score 1.0 = one negative in 10**DECADES
+_KNOT_DECADES = np.linspace(0.0, DECADES, 11)  # calibration knots every half decade
+FORMAT = "captioner-heads-1"
+
+
+@dataclass(frozen=True, slots=True)
+class NewConcept:
+    """Wording of a concept that a head adds to the vocabulary."""
+
+    phrase: str  # bracket convention: "gate squeaking"
+    phrase_present: str  # capitals convention: "gate squeaks"
+    kind: Kind = Kind.TRANSIENT
+    priority: int = 3
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class HeadSet:
+    """Linear heads with calibrations, in one stack.
+
+    weights: (n_heads, n_inputs) float32, n_inputs = embedding width (+ number of classes
+        when `uses_class_scores`); bias: (n_heads,); knots: (n_heads, n_knots) raw logits at
+        which the held-out negatives' survival is 10**-(knot_scores * DECADES).
+    """
+
+    concepts: tuple[str, ...]
+    weights: np.ndarray
+    bias: np.ndarray
+    knots: np.ndarray
+    knot_scores: np.ndarray
+    uses_class_scores: bool = False
+    new_concepts: Mapping[str, NewConcept] = field(default_factory=dict)
+    info: Mapping[str, Any] = field(default_factory=dict)  # what the heads were trained on, metrics
+
+    @property
+    def n_inputs(self) -> int:
+        return int(self.weights.shape[1])
+
+    def raw(self, embeddings: np.ndarray, class_scores: np.ndarray) -> np.ndarray:
+        """Raw logits (n, n_heads) for embeddings (n, d) and class probabilities (n, n_classes)."""
+        inputs = np.hstack([embeddings, class_scores]) if self.uses_class_scores else embeddings
+        logits: np.ndarray = inputs.astype(np.float32, copy=False) @ self.weights.T + self.bias
+        return logits
+
+    def __call__(self, embeddings: np.ndarray, class_scores: np.ndarray) -> np.ndarray:
+        """Calibrated scores (n, n_heads) float32 in [0, 1]."""
+        return calibrate(self.raw(embeddings, class_scores), self.knots, self.knot_scores)
+
+
+def calibrate(logits: np.ndarray, knots: np.ndarray, knot_scores: np.ndarray) -> np.ndarray:
+    """Map raw logits (n, n_heads) through each head's increasing knots to scores in [0, 1]."""
+    out = np.empty(logits.shape, np.float32)
+    for h in range(logits.shape[1]):
+        out[:, h] = np.interp(logits[:, h], knots[h], knot_scores, left=0.0, right=1.0)
+    return out
+
+
+def calibration_knots(negative_logits: np.ndarray) -> np.ndarray:
+    """Knots (n_knots,) from held-out negative logits: where their survival falls by each half decade.
+
+    Survival levels beyond what the sample can show (fewer than 10**k negatives) continue the
+    last measured slope, so the knots stay strictly increasing.
+    """
+    values = np.sort(np.asarray(negative_logits, dtype=np.float64))
+    n = values.size
+    knots = np.empty(_KNOT_DECADES.size)
+    measurable = 10.0**_KNOT_DECADES <= n / 2  # at least two negatives above the knot
+    for i, k in enumerate(_KNOT_DECADES):
+        if measurable[i]:
+            knots[i] = np.quantile(values, 1.0 - 10.0**-k) if k > 0 else values[0]
+        else:
+            step = max(knots[i - 1] - knots[i - 2], 1e-3) if i >= 2 else 1.0
+            knots[i] = knots[i - 1] + step
+    for i in range(1, knots.size):  # ties in the sample would make a flat step
+        knots[i] = max(knots[i], knots[i - 1] + 1e-4)
+    return knots.astype(np.float32)
+
+
+def knot_scores() -> np.ndarray:
+    return (_KNOT_DECADES / DECADES).astype(np.float32)
+
+
+def save_heads(path: Path, heads: HeadSet) -> None:
+    """Write a head file (.npz, arrays plus one JSON text; no pickled objects)."""
+    meta = {
+        "format": FORMAT,
+        "concepts": list(heads.concepts),
+        "uses_class_scores": heads.uses_class_scores,
+        "new_concepts": {
+            name: {
+                "phrase": c.phrase,
+                "phrase_present": c.phrase_present,
+                "kind": c.kind.value,
+                "priority": c.priority,
+            }
+            for name, c in heads.new_concepts.items()
+        },
+        "info": dict(heads.info),
+    }
+    with Path(path).open("wb") as handle:
+        np.savez_compressed(
+            handle,
+            weights=heads.weights.astype(np.float32),
+            bias=heads.bias.astype(np.float32),
+            knots=heads.knots.astype(np.float32),
+            knot_scores=heads.knot_scores.astype(np.float32),
+            meta=np.array(json.dumps(meta, sort_keys=True)),
+        )
+
+
+def load_heads(path: Path, *, expected_sha256: str | None = None) -> HeadSet:
+    """Read a head file, checking its SHA-256 when the pack pins one.
+
+    Raises:
+        PackError: missing, changed, or not a head file.
+    """
+    path = Path(path)
+    try:
+        data = path.read_bytes()
+    except OSError as exc:
+        raise PackError(
+            path, f"cannot read the head file ({exc.strerror})", "check the pack's heads"
+        ) from exc
+    if expected_sha256 and hashlib.sha256(data).hexdigest() != expected_sha256:
+        raise PackError(
+            path, "head file does not match its SHA-256", "restore it or update the pack manifest"
+        )
+    try:
+        with np.load(path, allow_pickle=False) as arrays:
+            weights, bias = arrays["weights"], arrays["bias"]
+            knots, scores = arrays["knots"], arrays["knot_scores"]
+            meta = json.loads(str(arrays["meta"]))
+    except (OSError, ValueError, KeyError) as exc:
+        raise PackError(
+            path, f"not a captioner head file ({exc})", "train one with `captioner teach`"
+        ) from exc
+    if not isinstance(meta, dict) or meta.get("format") != FORMAT:
+        raise PackError(path, "not a captioner head file (format)", "train one with `captioner teach`")
+    concepts = tuple(str(c) for c in meta["concepts"])
+    n = len(concepts)
+    if weights.ndim != 2 or weights.shape[0] != n or bias.shape != (n,) or knots.shape != (n, scores.size):
+        raise PackError(path, "head arrays do not fit together", "train the head file again")
+    try:
+        new = {
+            str(name): NewConcept(
+                str(spec["phrase"]), str(spec["phrase_present"]), Kind(spec["kind"]), int(spec["priority"])
+            )
+            for name, spec in meta.get("new_concepts", {}).items()
+        }
+    except (KeyError, ValueError, TypeError) as exc:
+        raise PackError(path, f"bad concept wording in the head file ({exc})", "train it again") from exc
+    return HeadSet(
+        concepts,
+        weights.astype(np.float32),
+        bias.astype(np.float32),
+        knots.astype(np.float32),
+        scores.astype(np.float32),
+        bool(meta.get("uses_class_scores", False)),
+        new,
+        dict(meta.get("info", {})),
+    )
+
+
+def combine_heads(
+    head_sets: Sequence[HeadSet], embedding_size: int, n_classes: int, where: Path
+) -> HeadSet | None:
+    """One stack of every head file of a pack; a concept in two files is an error.
+
+    Raises:
+        PackError: a head does not fit the classifier, or two files name one concept.
+    """
+    if not head_sets:
+        return None
+    seen: set[str] = set()
+    for heads in head_sets:
+        width = embedding_size + (n_classes if heads.uses_class_scores else 0)
+        if heads.n_inputs != width:
+            raise PackError(
+                where,
+                f"a head file expects {heads.n_inputs} inputs, the classifier gives {width}",
+                "train the heads on this pack",
+            )
+        clash = seen & set(heads.concepts)
+        if clash:
+            raise PackError(where, f"concept(s) {sorted(clash)} have two heads", "keep one head per concept")
+        seen |= set(heads.concepts)
+    if len(head_sets) == 1:
+        return head_sets[0]
+    use_scores = any(h.uses_class_scores for h in head_sets)
+    weights = [
+        h.weights if h.uses_class_scores or not use_scores else np.pad(h.weights, ((0, 0), (0, n_classes)))
+        for h in head_sets
+    ]
+    first = head_sets[0]
+    return replace(
+        first,
+        concepts=tuple(c for h in head_sets for c in h.concepts),
+        weights=np.vstack(weights),
+        bias=np.concatenate([h.bias for h in head_sets]),
+        knots=np.vstack([h.knots for h in head_sets]),
+        uses_class_scores=use_scores,
+        new_concepts={k: v for h in head_sets for k, v in h.new_concepts.items()},
+        info={"files": [dict(h.info) for h in head_sets]},
+    )
+
+
+def check_heads_fit(heads: HeadSet | None, vocabulary: Vocabulary, where: Path) -> None:
+    """Every head refines a captioned concept of the vocabulary or brings its own wording.
+
+    Raises:
+        PackError: a head names an unknown concept without wording, or rewords a known one.
+    """
+    if heads is None:
+        return
+    known = vocabulary.concepts()
+    for concept in heads.concepts:
+        if concept in heads.new_concepts and concept in known:
+            raise PackError(
+                where,
+                f"head concept {concept!r} is already in the vocabulary",
+                "give your concept another name",
+            )
+        if concept not in heads.new_concepts and concept not in known:
+            raise PackError(
+                where, f"head concept {concept!r} is not in the vocabulary", "retrain with wording"
+            )
+
+
+def with_head_concepts(vocabulary: Vocabulary, heads: HeadSet | None) -> Vocabulary:
+    """The vocabulary plus one entry (no classifier class: index -1) per concept a head adds."""
+    if heads is None or not heads.new_concepts:
+        return vocabulary
+    added = tuple(
+        ClassEntry(-1, f"head:{name}", name, c.phrase, c.phrase_present, c.kind, c.priority, None)
+        for name, c in heads.new_concepts.items()
+    )
+    return Vocabulary(vocabulary.entries + added)

@@ -1,0 +1,273 @@
+"""Train the built-in concept heads from the corpus that build_corpus.py rebuilt.
+
+    python training/train_heads.py --work DIR          # DIR as given to build_corpus.py
+
+Reads training/clips.csv and training/negatives.csv (the clip lists with licences), embeds
+every clip as a caption run would (16 kHz, 0.96 s patches every 0.48 s, level-averaged),
+in three versions: clean at a random gain, mixed under synthetic speech, and mixed with
+room noise, each with a second of that background around it. Then fits one head per concept
+listed in training/heads.yaml (cross-validated by clip), writes
+captioner/data/yamnet_heads.npz and the built-in negative pool, pins the head file's SHA-256
+in the pack manifest, and prints per-concept counts and cross-validated AUC / AP.
+"""
+
+from __future__ import annotations
+
+import argparse
+import csv
+import hashlib
+import json
+import re
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import yaml
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))
+
+from captioner import packs  # noqa: E402
+from captioner.fitting import IGNORED, NEGATIVE, POSITIVE, TrainingSet, report_table, train_heads  # noqa: E402
+from captioner.heads import save_heads  # noqa: E402
+from captioner.teach import NEGATIVE_POOL, QUIET_DB, embed, save_negative_pool  # noqa: E402
+
+RATE = 16000
+HOP_MS, PATCH_MS = 480, 960
+CONTEXT_S = 1.0  # background before and after each clip
+MAX_PATCHES = 16  # per clip version, so long recordings do not outweigh short ones
+MAX_CLIP_S = 12.0  # longer recordings are cut (a random stretch)
+
+
+def read_rows(path: Path) -> list[dict[str, str]]:
+    with path.open(encoding="utf-8", newline="") as handle:
+        return list(csv.DictReader(handle))
+
+
+def read_wav(path: Path) -> np.ndarray:
+    import wave
+
+    with wave.open(str(path), "rb") as handle:
+        if handle.getframerate() != RATE or handle.getnchannels() != 1 or handle.getsampwidth() != 2:
+            raise ValueError(f"{path}: expected 16 kHz mono 16-bit WAV")
+        data = np.frombuffer(handle.readframes(handle.getnframes()), "<i2")
+    return data.astype(np.float32) / 32768.0
+
+
+def rms_db(x: np.ndarray) -> float:
+    return float(10 * np.log10(np.mean(np.square(x, dtype=np.float64)) + 1e-12))
+
+
+def patch_levels(signal: np.ndarray, n_patches: int) -> np.ndarray:
+    """Loudest 10 ms frame (dBFS) inside each patch of a signal."""
+    frames = signal[: len(signal) // 160 * 160].reshape(-1, 160)
+    frame_db = 10 * np.log10(np.mean(frames.astype(np.float64) ** 2, axis=1) + 1e-12)
+    out = np.full(n_patches, -120.0)
+    for i in range(n_patches):
+        window = frame_db[i * 48 : i * 48 + 96]
+        if window.size:
+            out[i] = window.max()
+    return out
+
+
+def background(kind: str, n: int, speech: list[np.ndarray], rng: np.random.Generator) -> np.ndarray:
+    """n samples of synthetic speech, room noise or near-silence."""
+    if kind == "speech" and speech:
+        pieces, total = [], 0
+        while total < n:
+            piece = speech[rng.integers(len(speech))]
+            pieces.append(piece)
+            total += piece.size
+        out = np.concatenate(pieces)
+        start = int(rng.integers(0, max(1, out.size - n)))
+        return out[start : start + n]
+    if kind == "noise":
+        from scipy.signal import lfilter
+
+        colour = rng.uniform(0.0, 0.98)  # one-pole low-pass from white towards brown: room tone beds
+        return lfilter([1 - colour], [1, -colour], rng.normal(size=n)).astype(np.float32)
+    return (rng.normal(size=n) * 1e-4).astype(np.float32)
+
+
+def versions(
+    clip: np.ndarray, speech: list[np.ndarray], rng: np.random.Generator
+) -> list[tuple[np.ndarray, np.ndarray]]:
+    """(mixed signal, the clip alone placed the same way) for clean, under-speech and in-noise versions."""
+    if clip.size > MAX_CLIP_S * RATE:
+        start = int(rng.integers(0, clip.size - int(MAX_CLIP_S * RATE)))
+        clip = clip[start : start + int(MAX_CLIP_S * RATE)]
+    peak = np.abs(clip).max() + 1e-9
+    clip = clip / peak * 10 ** (rng.uniform(-24, -3) / 20)  # random playback level
+    pad = int(CONTEXT_S * RATE)
+    placed = np.concatenate([np.zeros(pad), clip, np.zeros(pad)]).astype(np.float32)
+    out = []
+    for kind, snr in (("silence", None), ("speech", rng.uniform(-3, 15)), ("noise", rng.uniform(3, 25))):
+        bed = background(kind, placed.size, speech, rng)
+        if snr is not None:
+            bed = bed / (np.sqrt(np.mean(bed**2)) + 1e-9) * 10 ** ((rms_db(clip) - snr) / 20)
+        out.append(((placed + bed).astype(np.float32), placed))
+    return out
+
+
+def positives(alone: np.ndarray, n_patches: int) -> np.ndarray:
+    """Patches where the clip itself is loud: within QUIET_DB of its loudest patch."""
+    levels = patch_levels(alone, n_patches)
+    return (levels >= levels.max() - QUIET_DB) & (levels > -70)
+
+
+def concept_relations(
+    config: dict, vocabulary_parents: dict[str, str | None]
+) -> dict[str, tuple[set[str], set[str]]]:
+    """Head -> (corpus concepts that are its positives, corpus concepts it ignores)."""
+
+    def ancestors(concept: str) -> list[str]:
+        chain, step = [], vocabulary_parents.get(concept)
+        while step and step not in chain:
+            chain.append(step)
+            step = vocabulary_parents.get(step)
+        return chain
+
+    groups = [set(g) for g in config.get("related", [])]
+    relations = {}
+    for head in config["heads"]:
+        spec = config["heads"][head] or {}
+        positive = {head, *spec.get("also", [])}
+        ignore = set(spec.get("ignore", []))
+        for concept in vocabulary_parents:
+            if head in ancestors(concept):
+                positive.add(concept)  # a car is a vehicle
+            if concept in ancestors(head):
+                ignore.add(concept)  # an "animal" clip may be this dog
+        for group in groups:
+            if positive & group:
+                ignore |= group - positive
+        relations[head] = (positive, ignore)
+    return relations
+
+
+def main() -> int:
+    parser = argparse.ArgumentParser(
+        description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter
+    )
+    parser.add_argument("--work", type=Path, required=True, help="the corpus folder of build_corpus.py")
+    parser.add_argument("--seed", type=int, default=20261202)
+    parser.add_argument(
+        "--cache", type=Path, default=None, help="embedding cache (default: WORK/embeddings.npz)"
+    )
+    parser.add_argument("--l2", type=float, default=1e-3)
+    args = parser.parse_args()
+    rng = np.random.default_rng(args.seed)
+    config = yaml.safe_load((ROOT / "training" / "heads.yaml").read_text(encoding="utf-8"))
+    clips = read_rows(ROOT / "training" / "clips.csv")
+    negatives = read_rows(ROOT / "training" / "negatives.csv")
+    pack = packs.load_pack(packs.DEFAULT_PACK, cache=packs.cache_root(), say=print)
+    parents = {c: e[0].parent for c, e in pack.vocabulary.concepts().items()}
+    counts: dict[str, int] = {}
+    for row in clips:
+        counts[row["concept"]] = counts.get(row["concept"], 0) + 1
+    min_clips = int(config.get("min_clips", 15))
+    heads = [
+        h
+        for h in config["heads"]
+        if sum(counts.get(c, 0) for c in concept_relations(config, parents)[h][0]) >= min_clips
+    ]
+    relations = concept_relations({**config, "heads": {h: config["heads"][h] for h in heads}}, parents)
+    speech_dir = args.work / "clips" / "_speech"
+    speech = [read_wav(p) for p in sorted(speech_dir.glob("*.wav"))]
+    print(
+        f"{len(clips)} labelled clips, {len(negatives)} negatives, {len(speech)} speech beds; "
+        f"{len(heads)} heads"
+    )
+
+    cache = args.cache or args.work / "embeddings.npz"
+    if cache.is_file():
+        stored = np.load(cache, allow_pickle=False)
+        features, concept_of, groups = stored["features"], list(stored["concept_of"]), stored["groups"]
+    else:
+        features_list, concept_list, group_list = [], [], []
+        started = time.time()
+        items = [(r, r["concept"], args.work / "clips" / r["concept"] / f"{r['clip_id']}.wav") for r in clips]
+        items += [
+            (
+                r,
+                "_negative:" + r["kind"],
+                args.work / "clips" / "_negative" / r["kind"] / f"{r['clip_id']}.wav",
+            )
+            for r in negatives
+        ]
+        for number, (_row, concept, path) in enumerate(items):
+            if number % 200 == 0:
+                print(f"  embedding {number}/{len(items)} ({time.time() - started:.0f} s)", flush=True)
+            try:
+                audio = read_wav(path)
+            except (OSError, ValueError, EOFError) as exc:
+                print(f"  skipped {path.name}: {exc}")
+                continue
+            if audio.size < RATE // 10 or np.abs(audio).max() < 1e-4:
+                continue
+            for mixed, alone in versions(audio, speech, rng):
+                done = embed(mixed, pack, hop_ms=HOP_MS, level_spread_db=6.0)
+                keep = (
+                    positives(alone, len(done.embeddings))
+                    if not concept.startswith("_")
+                    else np.ones(len(done.embeddings), bool)
+                )
+                chosen = np.flatnonzero(keep)
+                if chosen.size > MAX_PATCHES:
+                    chosen = np.sort(rng.choice(chosen, MAX_PATCHES, replace=False))
+                features_list.append(done.embeddings[chosen])
+                concept_list += [concept] * chosen.size
+                group_list.append(np.full(chosen.size, number))
+        features = np.concatenate(features_list).astype(np.float32)
+        concept_of, groups = concept_list, np.concatenate(group_list)
+        np.savez(cache, features=features, concept_of=np.array(concept_of), groups=groups)
+        print(f"embedded {len(items)} clips into {len(features)} patches in {time.time() - started:.0f} s")
+
+    labels = np.full((len(features), len(heads)), NEGATIVE, np.int8)
+    concept_arr = np.array(concept_of)
+    for j, head in enumerate(heads):
+        positive, ignore = relations[head]
+        labels[np.isin(concept_arr, sorted(ignore)), j] = IGNORED
+        labels[np.isin(concept_arr, sorted(positive)), j] = POSITIVE
+        if head == "music":
+            labels[concept_arr == "_negative:music", j] = POSITIVE
+    data = TrainingSet(features, labels, groups, tuple(heads))
+    packages = sorted({r["package"] for r in clips})
+    info = {
+        "trained_on": "openly licensed recordings from Debian packages plus synthesized alerts "
+        "(training/clips.csv)",
+        "packages": packages,
+        "clips": len(clips),
+        "synthesized_clips": sum(r.get("synthesized") == "1" for r in clips),
+        "negatives": len(negatives),
+        "clips_per_head": {h: sum(counts.get(c, 0) for c in relations[h][0]) for h in heads},
+    }
+    headset, reports = train_heads(data, l2=args.l2, info=info, say=print)
+    print(report_table(reports))
+    target = ROOT / "captioner" / "data" / "yamnet_heads.npz"
+    save_heads(target, headset)
+    pool = features[np.char.startswith(concept_arr, "_negative:")]
+    pool = pool[rng.choice(len(pool), min(len(pool), 4000), replace=False)]
+    save_negative_pool(NEGATIVE_POOL, pool)
+    digest = hashlib.sha256(target.read_bytes()).hexdigest()
+    manifest = ROOT / "captioner" / "data" / "yamnet.pack.yaml"
+    text = manifest.read_text(encoding="utf-8")
+    text = re.sub(r"(heads:\n  - file: yamnet_heads.npz\n    sha256: )[0-9a-f]+", rf"\g<1>{digest}", text)
+    manifest.write_text(text, encoding="utf-8")
+    (args.work / "heads_report.json").write_text(
+        json.dumps(
+            {
+                "info": info,
+                "reports": [r.__dict__ if hasattr(r, "__dict__") else r.__repr__() for r in reports],
+            },
+            default=str,
+            indent=1,
+        )
+    )
+    print(f"wrote {target.relative_to(ROOT)} (sha256 {digest[:12]}...) and the negative pool")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
