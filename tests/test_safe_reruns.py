@@ -231,9 +231,10 @@ def test_update_reads_a_record_reflowed_with_crlf_and_bom_and_works_without_one(
     tmp_path: Path, capsys: pytest.CaptureFixture[str], pack: object
 ) -> None:
     media, sounds = captioned(tmp_path)
-    text = sounds.read_text()
-    resaved = text.replace("[beeping]", "[beeping twice]").replace(
-        "NOTE captioner record 1\ncue", "NOTE captioner\nrecord 1\ncue"
+    resaved = (
+        sounds.read_text()
+        .replace("[beeping]", "[beeping twice]")
+        .replace("NOTE captioner record 1\ncue", "NOTE captioner\nrecord 1\ncue")
     )
     resaved = re.sub(r"(cue \S+ \S+) ", r"\1\n  ", resaved)  # lines broken again inside the block
     sounds.write_bytes(b"\xef\xbb\xbf" + resaved.replace("\n", "\r\n").encode())

@@ -325,7 +325,7 @@ def test_no_sequence_of_commands_and_hand_edits_loses_a_hand_edit(
     monkeypatch.setattr(formats, "_temporary", INJECT.temporary)
     monkeypatch.setattr(formats.os, "replace", INJECT.replace)
     SafeReruns.TestCase.settings = settings(
-        max_examples=8,
+        max_examples=15,
         stateful_step_count=12,
         deadline=None,
         phases=[Phase.explicit, Phase.reuse, Phase.generate],  # no shrinking: it costs minutes here
