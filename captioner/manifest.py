@@ -53,7 +53,7 @@ CREATE TABLE IF NOT EXISTS files (
     load_s REAL,                    -- model loading paid by this file (0 when warm)
     worker TEXT NOT NULL DEFAULT '',
     finished_at REAL NOT NULL,      -- Unix time
-    outputs TEXT NOT NULL DEFAULT '{}',  -- JSON {output path: sha256 of what we wrote}
+    outputs TEXT NOT NULL DEFAULT '{}',  -- JSON {output path: sha256 of what we wrote} (+ '#merged-from')
     pending TEXT NOT NULL DEFAULT '{}'   -- JSON, hashes of outputs being written right now
 );
 CREATE TABLE IF NOT EXISTS runs (
