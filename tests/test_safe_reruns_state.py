@@ -31,6 +31,8 @@ from test_safe_reruns import DIALOGUE, assert_valid_vtt, no_temporaries, two_sou
 
 from captioner import formats, library, packs
 from captioner.cli import main
+from captioner.formats.merge import merge_tracks, sound_cues_from_track
+from captioner.formats.subtitles import read_track
 from captioner.style import load_style
 
 MEDIA = ("a", "b", "c")  # c has dialogue subtitles beside it: batch runs merge it
@@ -84,6 +86,7 @@ class SafeReruns(RuleBasedStateMachine):
         self.promised: dict[str, set[Promise]] = {name: set() for name in MEDIA}
         self.backups: set[Path] = set()
         self.made = 0
+        self.style = load_style("brackets")
 
     def teardown(self) -> None:
         shutil.rmtree(self.folder, ignore_errors=True)
@@ -308,8 +311,14 @@ class SafeReruns(RuleBasedStateMachine):
                 return  # the track was edited after the last batch run: the next one merges it
             texts = " ".join(c.text for c in webvtt.read(str(merged)).captions)
             delivered = {c.text for c in webvtt.read(str(sounds)).captions}
+            # The merge's own layout rule may leave a sound cue out (two sound cues on one
+            # screen edge at once); it names each one it leaves out.
+            outcomes = merge_tracks(
+                read_track(self.folder / "c.vtt"), sound_cues_from_track(read_track(sounds)), self.style
+            ).outcomes
+            left_out = {o.text for o in outcomes if o.action == "dropped"}
             for _, _, text in self.promised["c"]:
-                assert text in texts or text not in delivered, text
+                assert text in texts or text not in delivered or text in left_out, text
 
 
 def _ms(stamp: str) -> int:
