@@ -54,8 +54,11 @@ def build_parser() -> argparse.ArgumentParser:
     caption.add_argument(
         "--merge",
         action="store_true",
-        help="write one track: the --dialogue cues unchanged plus the sound cues (default -o: "
-        "INPUT.merged.vtt/.srt)",
+        help=(
+            "write one track: the --dialogue file as it was plus the sound cues; a sound may become an extra "
+            "line of a dialogue cue (style merge.strategy combine; --explain lists them) "
+            "(default -o: INPUT.merged.vtt/.srt)"
+        ),
     )
     caption.add_argument(
         "--events-json",
@@ -131,7 +134,15 @@ def build_parser() -> argparse.ArgumentParser:
 
     merge = commands.add_parser(
         "merge",
-        help="fold a sound-caption track into a dialogue subtitle track, every dialogue cue unchanged",
+        help="fold a sound-caption track into a dialogue subtitle file, which is kept as it was",
+        description=(
+            "Writes the dialogue file as it was (header text, NOTE/STYLE/REGION blocks, line\n"
+            "endings, byte-order mark, every cue) with the sound cues added between its cues. With\n"
+            "the combine strategy a sound may instead become an extra line of a dialogue cue: the\n"
+            "summary counts those cues and --explain lists them. Alerts (phones, doorbells, alarms,\n"
+            "sirens) are never left out; each sound left out, and each alert that has to overlap\n"
+            "other cues, is reported on one warning line. SRT cues are renumbered from 1."
+        ),
         formatter_class=argparse.RawDescriptionHelpFormatter,
         epilog=(
             "examples:\n"

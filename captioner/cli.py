@@ -19,6 +19,7 @@ from .arguments import DEFAULT_SIDECAR, build_parser
 from .errors import CaptionerError, OutputError, SubtitleError
 
 if TYPE_CHECKING:
+    from .formats.merge import MergedTrack
     from .formats.subtitles import SubtitleTrack
 
 EXIT_OK, EXIT_SOME_FAILED, EXIT_BAD_INPUT = 0, 1, 2
@@ -73,9 +74,9 @@ def _notices(quiet: bool) -> Callable[[str], None]:
 def _caption(args: argparse.Namespace) -> int:
     from . import media, ownership, packs, pipeline, update
     from .formats import merged_track_path, sound_track_path
-    from .formats.merge import merge_table
+    from .formats.merge import check_dialogue
     from .formats.subtitles import dialogue_spans, read_track
-    from .report import explain_table, progress_bar
+    from .report import explain_table, merge_summary, merge_table, progress_bar
     from .style import load_style
 
     style = load_style(args.style)
@@ -86,6 +87,7 @@ def _caption(args: argparse.Namespace) -> int:
         raise SubtitleError("--merge", "needs the dialogue track to merge into", "add --dialogue SUBS")
     merging = bool(args.merge and track is not None)
     if merging and track is not None:
+        check_dialogue(track)  # before the classifier runs
         fmt, output = _merged_target(
             args.output, args.format, track, args.dialogue, merged_track_path(args.input, track.format)
         )
@@ -150,18 +152,18 @@ def _caption(args: argparse.Namespace) -> int:
         print(explain_table(result), file=sys.stderr)
         if merged is not None:
             print(merge_table(merged), file=sys.stderr)
+    if merged is not None:
+        _merge_warnings(merged)
     if result.empty_stream_notice():
         say(result.empty_stream_notice())
     if keep_merged:
         say(f"kept {output} as you left it; the new merge is in {target}")
     elif output is not None and not updating:
-        counted = (
-            f"{len(result.cues)} cue(s)"
+        say(
+            f"{len(result.cues)} cue(s) written to {output}"
             if merged is None
-            else f"{len(merged.cues)} cue(s), {sum(c.dialogue is not None for c in merged.cues)} of them "
-            "dialogue,"
+            else f"{output}: {merge_summary(merged)}"
         )
-        say(f"{counted} written to {output}")
     return EXIT_OK
 
 
@@ -197,9 +199,10 @@ def _write_with_backups(files: list[tuple[Path, str]], *, force: bool, keep: set
 def _merge(args: argparse.Namespace) -> int:
     from . import pipeline
     from .formats import sidecar
-    from .formats.merge import merge_table, outcomes_json, sound_cues_from_track
+    from .formats.merge import merge_json, sound_cues_from_track
     from .formats.subtitles import read_track
     from .ownership import sealed
+    from .report import merge_summary, merge_table
     from .style import load_style
 
     style = load_style(args.style)
@@ -207,8 +210,8 @@ def _merge(args: argparse.Namespace) -> int:
     _, output = _merged_target(args.output, None, dialogue, args.dialogue_subs, None)
     _refuse_overwrite((output, args.events_json), (args.sound_cues, args.dialogue_subs), force=args.force)
     note = (
-        f"Dialogue of {args.dialogue_subs.name} with the sound captions of {args.sound_cues.name}\nmerged "
-        f"by captioner {__version__}, style {style.name}; review before publishing"
+        f"Dialogue of {args.dialogue_subs.name} with the sound captions of {args.sound_cues.name}\n"
+        f"merged by captioner {__version__}, style {style.name}; review before publishing"
     )
     merged, text = pipeline.merge_text(
         dialogue, sound_cues_from_track(read_track(args.sound_cues)), style, note
@@ -224,20 +227,24 @@ def _merge(args: argparse.Namespace) -> int:
             "sound_cues_file": args.sound_cues.name,
             "style": style.name,
             "strategy": style.merge.strategy,
-            "sound_cues": outcomes_json(merged),
+            **merge_json(merged),
         }
         files.append((Path(args.events_json), sealed(sidecar.dumps(document), "json")))
     _write_with_backups(files, force=args.force, keep=set())
     if args.explain:
         print(merge_table(merged), file=sys.stderr)
-    if output is not None and not args.quiet:
-        dropped = sum(o.action == "dropped" for o in merged.outcomes)
-        print(
-            f"captioner: {len(merged.cues)} cue(s) written to {output}; {dropped} sound cue(s) left out "
-            "(see --explain)",
-            file=sys.stderr,
-        )
+    _merge_warnings(merged)
+    if output is not None:
+        _notices(args.quiet)(f"{output}: {merge_summary(merged)} (see --explain)")
     return EXIT_OK
+
+
+def _merge_warnings(merged: MergedTrack) -> None:
+    """Each sound left out and each alert placed against the limits: one line, even with --quiet."""
+    from .report import merge_warnings
+
+    for line in merge_warnings(merged):
+        print(f"captioner: warning: {line}", file=sys.stderr)
 
 
 def _merged_target(

@@ -35,7 +35,8 @@ class HeadReport:
 class TrainingSet:
     """Patches to learn from.
 
-    features: (n, d) float32 embeddings; labels: (n, n_heads) int8, POSITIVE, NEGATIVE or
+    features: (n, d) float32 embeddings (then class probabilities, when uses_class_scores);
+    labels: (n, n_heads) int8, POSITIVE, NEGATIVE or
     IGNORED (neither: e.g. a parent sound, or a quiet stretch of a labelled clip);
     groups: (n,) int clip numbers, so that folds never split one recording.
     """
@@ -45,6 +46,7 @@ class TrainingSet:
     groups: np.ndarray
     concepts: tuple[str, ...]
     new_concepts: Mapping[str, NewConcept] = field(default_factory=dict)
+    uses_class_scores: bool = False  # features end with the classifier's class probabilities
 
 
 def fit_logistic(
@@ -154,6 +156,7 @@ def train_heads(
         bias,
         knots,
         knot_scores(),
+        uses_class_scores=data.uses_class_scores,
         new_concepts=dict(data.new_concepts),
         info={**(info or {}), "cross_validated": metrics, "folds": folds, "l2": l2},
     )

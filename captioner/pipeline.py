@@ -21,8 +21,8 @@ from .formats.merge import (
     MergedTrack,
     dropped_decisions,
     dumps_merged,
+    merge_json,
     merge_tracks,
-    outcomes_json,
     sound_cues_from_track,
 )
 from .formats.subtitles import SubtitleTrack, read_track
@@ -155,7 +155,7 @@ class Drafts:
             document["merge"] = {
                 "dialogue": self.dialogue_name,
                 "strategy": self.result.style.merge.strategy,
-                "sound_cues": outcomes_json(self.merged),
+                **merge_json(self.merged),
             }
         return sealed(sidecar.dumps(document), "json")  # the seal tells our own file from a changed one
 
@@ -178,8 +178,13 @@ def draft_outputs(
         note += "\n" + result.stream_line()
     merged, merged_text = None, None
     if merge_with is not None:
+        priorities = {e.event_id: e.priority for e in result.events}
         merged, merged_text = merge_text(
-            merge_with, result.cues, result.style, note + f"\nmerged with the dialogue of {dialogue_name}"
+            merge_with,
+            result.cues,
+            result.style,
+            note + f"\nmerged with the dialogue of {dialogue_name}",
+            priorities=priorities,
         )
         drops = {d.event_id: d for d in dropped_decisions(merged)}
         result = dataclasses.replace(
@@ -190,11 +195,16 @@ def draft_outputs(
 
 
 def merge_text(
-    dialogue: SubtitleTrack, sounds: Sequence[Cue], style: Style, note: str
+    dialogue: SubtitleTrack,
+    sounds: Sequence[Cue],
+    style: Style,
+    note: str,
+    *,
+    priorities: dict[str, int] | None = None,
 ) -> tuple[MergedTrack, str]:
     """Dialogue and sound cues as one track, and its text (a WebVTT one sealed, so a later
     run can tell it from a hand-edited copy)."""
-    merged = merge_tracks(dialogue, sounds, style)
+    merged = merge_tracks(dialogue, sounds, style, priorities=priorities)
     return merged, sealed(dumps_merged(merged, note), merged.format)
 
 

@@ -1,4 +1,4 @@
-"""Terminal output: the progress bar and the --explain table."""
+"""Terminal output: the progress bar, the --explain tables, and what a merge did."""
 
 from __future__ import annotations
 
@@ -8,6 +8,8 @@ from contextlib import contextmanager
 from typing import Any
 
 from .captioned import Captioned
+from .formats.merge import ACTIONS, MergedTrack
+from .formats.webvtt import timestamp
 from .probing import MediaInfo
 
 _LONG_INPUT_MS = 30_000  # shorter inputs finish before a bar is worth drawing
@@ -100,3 +102,62 @@ def explain_table(result: Captioned) -> str:
         f"{result.dialogue_source}"
     )
     return "\n".join(rows)
+
+
+def merge_table(track: MergedTrack) -> str:
+    """One row per sound cue: its time, text, what the merge did and why; then the counts."""
+    header = f"{'sound cue':<12} {'start':>9} {'placed':>9}  {'action':<11} text / reason"
+    rows = [header, "-" * len(header)]
+    for o in track.outcomes:
+        placed = "-" if o.placed_start_ms is None else timestamp(o.placed_start_ms)[3:]
+        rows.append(
+            f"{','.join(o.event_ids)[:12]:<12} {timestamp(o.start_ms)[3:]:>9} {placed:>9}  {o.action:<11} "
+            f"{o.text[:30]} / {o.detail}"
+        )
+    rows += [
+        f"  sound line added to the dialogue cue at {timestamp(c.start_ms)} ({c.dialogue.location}): "
+        + " / ".join(c.sound_lines)
+        for c in track.cues
+        if c.dialogue is not None and c.sound_lines
+    ]
+    counts = {action: sum(o.action == action for o in track.outcomes) for action in ACTIONS}
+    rows.append(
+        merge_summary(track) + "; sound cues: " + ", ".join(f"{n} {a}" for a, n in counts.items() if n)
+    )
+    return "\n".join(rows)
+
+
+def merge_summary(track: MergedTrack) -> str:
+    """What happened to the dialogue file, e.g. "41 dialogue cue(s) untouched, 2 with a sound line added".
+
+    Every dialogue cue's own text, timing, identifier and settings stay as written; "a sound
+    line added" means the `combine` strategy showed a sound as an extra line of that cue.
+    """
+    dialogue = [c for c in track.cues if c.dialogue is not None]
+    added = sum(bool(c.sound_lines) for c in dialogue)
+    own = sum(c.dialogue is None for c in track.cues)
+    left_out = sum(o.action == "dropped" for o in track.outcomes)
+    return (
+        f"{len(dialogue) - added} dialogue cue(s) untouched, {added} with a sound line added; "
+        f"{own} sound cue(s) of their own, {left_out} left out"
+    )
+
+
+def merge_warnings(track: MergedTrack) -> list[str]:
+    """One line per sound left out, per alert shown overlapping, and one for sounds already there."""
+    lines = []
+    for o in track.outcomes:
+        if o.action == "dropped":
+            lines.append(f"left out {o.text} at {timestamp(o.start_ms)}: {o.detail}")
+        elif o.action == "overlapping":
+            lines.append(
+                f"alert {o.text} at {timestamp(o.start_ms)} overlaps other cues (players stack them): "
+                "no placement kept every layout limit; check it"
+            )
+    present = [o for o in track.outcomes if o.action == "present"]
+    if present:
+        lines.append(
+            f"{len(present)} sound cue(s) already in {track.dialogue.name} with the same text and time "
+            f"(from an earlier merge, first at {timestamp(present[0].start_ms)}) were not added again"
+        )
+    return lines

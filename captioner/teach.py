@@ -147,6 +147,7 @@ class Embedded:
     """Embeddings of one recording's patches with their start times and levels."""
 
     embeddings: np.ndarray  # (n, d) float32
+    class_scores: np.ndarray  # (n, n_classes) float32
     level_db: np.ndarray  # (n,) loudest 10 ms frame level inside each patch, dBFS
     hop_ms: int
     patch_ms: int
@@ -185,7 +186,7 @@ def embed(samples: np.ndarray, pack: LoadedPack, *, hop_ms: int, level_spread_db
         ],
         np.float32,
     )
-    return Embedded(track.embeddings, levels, track.hop_ms, track.patch_ms)
+    return Embedded(track.embeddings, track.scores, levels, track.hop_ms, track.patch_ms)
 
 
 def loud_patches(levels: np.ndarray, *, floor_db: float = -60.0) -> np.ndarray:

@@ -156,6 +156,11 @@ def main() -> int:
         "--cache", type=Path, default=None, help="embedding cache (default: WORK/embeddings.npz)"
     )
     parser.add_argument("--l2", type=float, default=1e-3)
+    parser.add_argument(
+        "--embedding-only",
+        action="store_true",
+        help="heads read the embedding alone, not also the class scores",
+    )
     args = parser.parse_args()
     rng = np.random.default_rng(args.seed)
     config = yaml.safe_load((ROOT / "training" / "heads.yaml").read_text(encoding="utf-8"))
@@ -184,8 +189,9 @@ def main() -> int:
     if cache.is_file():
         stored = np.load(cache, allow_pickle=False)
         features, concept_of, groups = stored["features"], list(stored["concept_of"]), stored["groups"]
+        class_scores = stored["class_scores"]
     else:
-        features_list, concept_list, group_list = [], [], []
+        features_list, concept_list, group_list, score_list = [], [], [], []
         started = time.time()
         items = [(r, r["concept"], args.work / "clips" / r["concept"] / f"{r['clip_id']}.wav") for r in clips]
         items += [
@@ -217,11 +223,19 @@ def main() -> int:
                 if chosen.size > MAX_PATCHES:
                     chosen = np.sort(rng.choice(chosen, MAX_PATCHES, replace=False))
                 features_list.append(done.embeddings[chosen])
+                score_list.append(done.class_scores[chosen])
                 concept_list += [concept] * chosen.size
                 group_list.append(np.full(chosen.size, number))
         features = np.concatenate(features_list).astype(np.float32)
+        class_scores = np.concatenate(score_list).astype(np.float32)
         concept_of, groups = concept_list, np.concatenate(group_list)
-        np.savez(cache, features=features, concept_of=np.array(concept_of), groups=groups)
+        np.savez(
+            cache,
+            features=features,
+            class_scores=class_scores,
+            concept_of=np.array(concept_of),
+            groups=groups,
+        )
         print(f"embedded {len(items)} clips into {len(features)} patches in {time.time() - started:.0f} s")
 
     labels = np.full((len(features), len(heads)), NEGATIVE, np.int8)
@@ -232,7 +246,9 @@ def main() -> int:
         labels[np.isin(concept_arr, sorted(positive)), j] = POSITIVE
         if head == "music":
             labels[concept_arr == "_negative:music", j] = POSITIVE
-    data = TrainingSet(features, labels, groups, tuple(heads))
+    with_classes = not args.embedding_only
+    inputs = np.hstack([features, class_scores]) if with_classes else features
+    data = TrainingSet(inputs, labels, groups, tuple(heads), uses_class_scores=with_classes)
     packages = sorted({r["package"] for r in clips})
     info = {
         "trained_on": "openly licensed recordings from Debian packages plus synthesized alerts "
@@ -253,7 +269,9 @@ def main() -> int:
     digest = hashlib.sha256(target.read_bytes()).hexdigest()
     manifest = ROOT / "captioner" / "data" / "yamnet.pack.yaml"
     text = manifest.read_text(encoding="utf-8")
-    text = re.sub(r"(heads:\n  - file: yamnet_heads.npz\n    sha256: )[0-9a-f]+", rf"\g<1>{digest}", text)
+    entry = f"heads:\n  - file: yamnet_heads.npz\n    sha256: {digest}\n"
+    pinned = re.compile(r"heads:\n  - file: yamnet_heads.npz\n    sha256: [0-9a-f]+\n")
+    text = pinned.sub(entry, text) if pinned.search(text) else text.rstrip("\n") + "\n" + entry
     manifest.write_text(text, encoding="utf-8")
     (args.work / "heads_report.json").write_text(
         json.dumps(

@@ -2,16 +2,22 @@
 
 The working file keeps its NOTE heading and its `--update` record; the delivery copy is
 written beside it. Cues, their identifiers, settings and text, and STYLE/REGION blocks are
-carried over exactly, as a merge carries dialogue cues.
+carried over exactly.
 """
 
 from __future__ import annotations
 
-from .merge import MergedCue, MergedTrack, dumps_merged
+from . import srt as srt_writer
+from . import webvtt as vtt_writer
 from .subtitles import SubtitleTrack
 
 
 def delivery_text(track: SubtitleTrack) -> str:
     """The track in its own format with every NOTE block left out (SRT has none to leave out)."""
-    cues = tuple(MergedCue(c.start_ms, c.end_ms, dialogue=c) for c in track.cues)
-    return dumps_merged(MergedTrack(track.format, cues, (), track.header_blocks))
+    if track.format == "srt":
+        return srt_writer.dumps_text([(c.start_ms, c.end_ms, c.text) for c in track.cues])
+    blocks = [
+        vtt_writer.cue_block(c.start_ms, c.end_ms, c.text, identifier=c.identifier, settings=c.settings)
+        for c in track.cues
+    ]
+    return vtt_writer.document(blocks, header_blocks=track.header_blocks)

@@ -1,88 +1,101 @@
-"""Merge: sound cues folded into an existing dialogue track, every dialogue cue kept exactly.
+"""Merge: sound cues folded into a dialogue subtitle file, which is kept as it was.
 
-Dialogue cues are the editor's: their text, tags, identifiers, settings and times pass
-through untouched (a cue only ever gains sound lines appended after its own text), so
-removing the sound from the merged track gives the dialogue track back. Layout limits are
-enforced on what the merge creates or changes: sound cues, and dialogue cues that gained a
-sound line. A sound cue that clashes with dialogue is, by the style's merge strategy and its
-fallbacks (see `captioner.style.Merge`), positioned at the other screen edge (WebVTT),
-added as a line of the dialogue cue, moved into a dialogue gap within the sync tolerance,
-or left out with the reason recorded.
+The merged file is the dialogue file's own text (header text, STYLE/REGION/NOTE blocks,
+line endings, byte-order mark, every cue block as written) with sound cue blocks inserted
+between its blocks, plus sound lines after a dialogue cue's own text where the `combine`
+strategy adds one. Taking those out again gives the dialogue file back byte for byte; SRT
+counters are renumbered from 1 in the merged order (SRT has no other way to hold a cue
+between two others). WebVTT merges carry a `NOTE captioner merge` block.
+
+Where each sound goes is decided in `placement`. Here: which sounds are alerts (priority
+4-5, never left out), which are in the dialogue file already (an earlier merge), and
+refusing a "dialogue" file that holds captioner's own sound captions.
 """
 
 from __future__ import annotations
 
-from bisect import bisect_left, bisect_right, insort
-from collections.abc import Sequence
+import re
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
-from typing import Any, Literal
+from datetime import timedelta
+from functools import lru_cache
+from pathlib import Path
+from typing import Any
 
-from webvtt.models import CueSettings
+import srt as srt_library
+import yaml
 
-from ..cues import Cue, reading_ms, unique_identifier, wrap
+from ..cues import Cue, unique_identifier
+from ..errors import SubtitleError
 from ..policy import Decision
-from ..style import Layout, Style
-from . import srt as srt_writer
+from ..style import Style
 from . import webvtt as vtt_writer
-from .subtitles import SubtitleCue, SubtitleFormat, SubtitleTrack, plain_lines
+from .delivery import delivery_text
+from .placement import ACTIONS, Board, MergedCue, SoundOutcome, pieces
+from .subtitles import SubtitleCue, SubtitleFormat, SubtitleTrack, parse_subtitles, plain_lines
+from .textblocks import blocks
 
-Action = Literal["kept", "retimed", "positioned", "combined", "moved", "dropped"]
-Edge = Literal["top", "bottom"]
-_FALLBACKS = {
-    "position": ("position", "combine", "move"),
-    "combine": ("combine", "move"),
-    "move": ("move",),
-    "drop": (),
-}
-_EDGE_SETTING = {"top": "line:0", "bottom": "line:-1"}  # first line from the top / last from the bottom
-_OTHER_EDGE: dict[Edge, Edge] = {"top": "bottom", "bottom": "top"}
+__all__ = [
+    "ACTIONS",
+    "MergedCue",
+    "MergedTrack",
+    "SoundOutcome",
+    "check_dialogue",
+    "dropped_decisions",
+    "dumps_merged",
+    "merge_json",
+    "merge_tracks",
+    "outcomes_json",
+    "sound_cues_from_track",
+    "sound_priority",
+    "unmerge",
+]
 
-
-@dataclass(frozen=True, slots=True)
-class MergedCue:
-    """One cue of the merged track: a dialogue cue (possibly with sound lines after its own
-    text) or a sound cue of its own. Times in ms."""
-
-    start_ms: int
-    end_ms: int
-    dialogue: SubtitleCue | None = None  # the editor's cue, unchanged
-    sound_lines: tuple[str, ...] = ()  # plain-text sound caption lines shown in this cue
-    event_ids: tuple[str, ...] = ()
-    edge: Edge | None = None  # a sound cue placed at this screen edge (WebVTT `line:`)
-
-
-@dataclass(frozen=True, slots=True)
-class SoundOutcome:
-    """What the merge did with one sound cue (or one part of a split cue); times in ms."""
-
-    event_ids: tuple[str, ...]
-    text: str
-    start_ms: int
-    end_ms: int
-    action: Action
-    placed_start_ms: int | None
-    placed_end_ms: int | None
-    detail: str
+MERGE_HEADING = "NOTE captioner merge"
+ALERT_PRIORITY = 4  # attention and safety sounds (vocabulary priorities 4-5) are never left out
+_OURS = re.compile(r"^(NOTE captioner (?:record|merge))\b", re.MULTILINE)
+_VOCABULARY = Path(__file__).resolve().parents[1] / "data" / "yamnet_vocabulary.yaml"
+_MARKS = "[]♪# \t"
 
 
 @dataclass(frozen=True, slots=True)
 class MergedTrack:
-    """The merged track in time order, in the dialogue file's format."""
+    """The merged track: its cues in time order, what happened to each sound, and the
+    dialogue file it is written into."""
 
     format: SubtitleFormat
     cues: tuple[MergedCue, ...]
     outcomes: tuple[SoundOutcome, ...]
-    header_blocks: tuple[str, ...] = ()
+    dialogue: SubtitleTrack
 
 
-def merge_tracks(dialogue: SubtitleTrack, sounds: Sequence[Cue], style: Style) -> MergedTrack:
-    """Fold sound cues into a dialogue track; see the module notes for the rules."""
-    board = _Board(dialogue, style)
-    outcomes = [
-        board.place(piece)
-        for cue in sorted(sounds, key=lambda c: (c.start_ms, c.end_ms))
-        for piece in _pieces(cue, style.layout)
-    ]
+def merge_tracks(
+    dialogue: SubtitleTrack,
+    sounds: Sequence[Cue],
+    style: Style,
+    *,
+    priorities: Mapping[str, int] | None = None,
+) -> MergedTrack:
+    """Fold sound cues into a dialogue track; see the module notes for the rules.
+
+    `priorities` maps event ids to vocabulary priorities; a cue whose ids are not in it is
+    rated by its wording (see `sound_priority`).
+
+    Raises:
+        SubtitleError: the dialogue file holds captioner's own sound captions.
+    """
+    _refuse_sound_tracks(dialogue, sounds, style.layout.sync_tolerance_ms)
+    if dialogue.source is None:
+        dialogue = _with_source(dialogue)
+    board = Board(dialogue, style)
+    outcomes = []
+    for cue in sorted(sounds, key=lambda c: (c.start_ms, c.end_ms)):
+        earlier = _already_there(dialogue, cue, style.layout.sync_tolerance_ms)
+        if earlier is not None:
+            outcomes.append(earlier)
+            continue
+        alert = sound_priority(cue, priorities) >= ALERT_PRIORITY
+        outcomes += [board.place(piece) for piece in pieces(cue, style.layout, alert=alert)]
     merged = [
         MergedCue(
             d.start_ms,
@@ -95,7 +108,26 @@ def merge_tracks(dialogue: SubtitleTrack, sounds: Sequence[Cue], style: Style) -
     ]
     merged += board.placed
     merged.sort(key=lambda c: (c.start_ms, c.end_ms, c.dialogue is None))  # stable: dialogue keeps its order
-    return MergedTrack(dialogue.format, tuple(merged), tuple(outcomes), dialogue.header_blocks)
+    return MergedTrack(dialogue.format, tuple(merged), tuple(outcomes), dialogue)
+
+
+def sound_priority(cue: Cue, priorities: Mapping[str, int] | None = None) -> int:
+    """The cue's priority: from its events when known, else from its wording in the bundled
+    vocabulary; wording it does not know counts as an alert (5), so it is never left out.
+
+    >>> dog, phone = Cue(0, 1, ("[dog barking]",), ("e1-end",)), Cue(0, 1, ("PHONE RINGS",), ("x",))
+    >>> sound_priority(dog), sound_priority(phone), sound_priority(dog, {"e1": 2})
+    (3, 4, 2)
+    >>> sound_priority(Cue(0, 1, ("[tuba]",), ()))
+    5
+    """
+    given = priorities or {}
+    known = [given[i.removesuffix("-end")] for i in cue.event_ids if i.removesuffix("-end") in given]
+    if known:
+        return max(known)
+    wordings = _wording_priorities()
+    rated = [wordings.get(_phrase(line), 5) for line in cue.lines if _phrase(line)]
+    return max(rated, default=5)
 
 
 def unmerge(track: MergedTrack) -> tuple[SubtitleCue, ...]:
@@ -113,31 +145,90 @@ def sound_cues_from_track(track: SubtitleTrack) -> tuple[Cue, ...]:
 
 
 def dumps_merged(track: MergedTrack, note: str = "") -> str:
-    """The merged track as WebVTT (with `note` and the dialogue's STYLE/REGION blocks) or SRT."""
-    if track.format == "srt":
-        return srt_writer.dumps_text([(c.start_ms, c.end_ms, _payload(c, "srt")) for c in track.cues])
-    used = {c.dialogue.identifier for c in track.cues if c.dialogue is not None and c.dialogue.identifier}
-    blocks = []
-    for cue in track.cues:
-        if cue.dialogue is not None:
-            blocks.append(
-                vtt_writer.cue_block(
-                    cue.start_ms,
-                    cue.end_ms,
-                    _payload(cue, "vtt"),
-                    identifier=cue.dialogue.identifier,
-                    settings=cue.dialogue.settings,
-                )
-            )
+    """The dialogue file's text with the sound cues written in (WebVTT: and a merge NOTE)."""
+    source = track.dialogue.source
+    assert source is not None  # merge_tracks gives every track a source
+    text, newline = source.text, source.newline
+    taken = {c.dialogue.identifier for c in track.cues if c.dialogue is not None and c.dialogue.identifier}
+    parts, cursor, counter = ["\ufeff" if source.bom else ""], 0, 0
+    for edit in sorted(_edits(track, note), key=lambda e: (e.offset, e.order)):
+        parts.append(text[cursor : edit.offset])
+        cursor = edit.offset
+        if edit.order == _ADDED_LINES:
+            assert isinstance(edit.item, str)
+            parts.append(edit.item)
             continue
-        identifier = unique_identifier(f"sound-{cue.event_ids[0]}" if cue.event_ids else "sound", used)
-        settings = _EDGE_SETTING[cue.edge] if cue.edge else ""
-        blocks.append(
-            vtt_writer.cue_block(
-                cue.start_ms, cue.end_ms, _payload(cue, "vtt"), identifier=identifier, settings=settings
-            )
+        if edit.item is None:  # a dialogue cue: SRT numbers every cue in the merged order
+            counter += 1
+            if track.format == "srt" and text[edit.offset : edit.until].strip().isdigit():
+                parts.append(str(counter))
+                cursor = edit.until
+            continue
+        if isinstance(edit.item, MergedCue):
+            counter += 1
+            block = _sound_block(edit.item, track.format, counter, taken)
+        else:
+            block = edit.item
+        block = block.replace("\n", newline)
+        parts.append(newline * 2 + block if edit.order >= _AFTER_LAST else block + newline * 2)
+    parts.append(text[cursor:])
+    return "".join(parts)
+
+
+@dataclass(frozen=True, slots=True)
+class _Edit:
+    """One change to the dialogue file's text: insert at `offset`, or (a cue's counter line,
+    `item` None) replace up to `until`. Edits at one offset apply in `order`."""
+
+    offset: int
+    order: int
+    item: str | MergedCue | None
+    until: int = 0
+
+
+_BEFORE_NOTE, _BEFORE, _COUNTER, _ADDED_LINES, _AFTER_LAST, _AFTER_LAST_SOUND = range(-1, 5)
+
+
+def _edits(track: MergedTrack, note: str) -> list[_Edit]:
+    """Where the merge NOTE, each sound cue and each added sound line go in the dialogue text.
+
+    A sound cue goes before the first dialogue cue (in file order) that starts after it, right
+    after the block of the cue before that one, so a NOTE above a cue stays with its cue; a
+    sound after every dialogue cue goes after the last block.
+    """
+    assert track.dialogue.source is not None
+    text, fmt = track.dialogue.source.text, track.format
+    found = blocks(text)
+    last = found[-1][1] if found else 0
+    edits = []
+    if fmt == "vtt":
+        heading = MERGE_HEADING + ("\n" + vtt_writer.note_text(note) if note.strip() else "")
+        first = found[1][0] if len(found) > 1 else None  # the block after the WEBVTT header
+        edits.append(
+            _Edit(first, _BEFORE_NOTE, heading) if first is not None else _Edit(last, _AFTER_LAST, heading)
         )
-    return vtt_writer.document(blocks, note=note, header_blocks=track.header_blocks)
+    in_file = sorted(
+        ((c.dialogue.span, c) for c in track.cues if c.dialogue is not None and c.dialogue.span is not None),
+        key=lambda pair: pair[0].start,
+    )
+    for span, cue in in_file:
+        counter_end = span.start + len(text[span.start : span.timing].rstrip("\r\n"))
+        edits.append(_Edit(span.start, _COUNTER, None, counter_end))
+        if cue.sound_lines:
+            lines = [vtt_writer.escape(x) if fmt == "vtt" else x for x in cue.sound_lines]
+            edits.append(
+                _Edit(span.text_end, _ADDED_LINES, "".join(track.dialogue.source.newline + x for x in lines))
+            )
+    for sound in (c for c in track.cues if c.dialogue is None):
+        later = next((n for n, (_, d) in enumerate(in_file) if d.start_ms > sound.start_ms), None)
+        if later is None:
+            edits.append(_Edit(last, _AFTER_LAST_SOUND, sound))
+        elif later == 0:
+            edits.append(_Edit(in_file[0][0].start, _BEFORE, sound))
+        else:
+            previous_end = in_file[later - 1][0].text_end
+            edits.append(_Edit(next(b for b, _ in found if b > previous_end), _BEFORE, sound))
+    return edits
 
 
 def dropped_decisions(track: MergedTrack) -> tuple[Decision, ...]:
@@ -160,6 +251,7 @@ def outcomes_json(track: MergedTrack) -> list[dict[str, Any]]:
             "start_ms": o.start_ms,
             "end_ms": o.end_ms,
             "action": o.action,
+            "alert": o.alert,
             "placed_start_ms": o.placed_start_ms,
             "placed_end_ms": o.placed_end_ms,
             "reason": o.detail,
@@ -168,293 +260,124 @@ def outcomes_json(track: MergedTrack) -> list[dict[str, Any]]:
     ]
 
 
-def merge_table(track: MergedTrack) -> str:
-    """One row per sound cue: its time, text, what the merge did and why."""
-    header = f"{'sound cue':<12} {'start':>9} {'placed':>9}  {'action':<10} text / reason"
-    rows = [header, "-" * len(header)]
-    for o in track.outcomes:
-        placed = "-" if o.placed_start_ms is None else vtt_writer.timestamp(o.placed_start_ms)[3:]
-        rows.append(
-            f"{','.join(o.event_ids)[:12]:<12} {vtt_writer.timestamp(o.start_ms)[3:]:>9} {placed:>9}  "
-            f"{o.action:<10} {o.text[:30]} / {o.detail}"
-        )
-    counts = {
-        action: sum(o.action == action for o in track.outcomes)
-        for action in ("kept", "retimed", "positioned", "combined", "moved", "dropped")
+def merge_json(track: MergedTrack) -> dict[str, Any]:
+    """The sidecar's account of a merge: every sound cue, and which dialogue cues gained a line."""
+    changed = [c for c in track.cues if c.dialogue is not None and c.sound_lines]
+    return {
+        "sound_cues": outcomes_json(track),
+        "dialogue_cues": sum(c.dialogue is not None for c in track.cues),
+        "dialogue_cues_untouched": sum(c.dialogue is not None and not c.sound_lines for c in track.cues),
+        "dialogue_cues_with_sound_line": [
+            {
+                "start_ms": c.start_ms,
+                "end_ms": c.end_ms,
+                "where": c.dialogue.location if c.dialogue else "",
+                "added": list(c.sound_lines),
+            }
+            for c in changed
+        ],
     }
-    dialogue = sum(c.dialogue is not None for c in track.cues)
-    rows.append(
-        f"{dialogue} dialogue cues kept unchanged; sound cues: "
-        + ", ".join(f"{n} {a}" for a, n in counts.items() if n)
+
+
+def _sound_block(cue: MergedCue, fmt: SubtitleFormat, counter: int, taken: set[str]) -> str:
+    if fmt == "srt":
+        stamps = (
+            srt_library.timedelta_to_srt_timestamp(timedelta(milliseconds=ms))
+            for ms in (cue.start_ms, cue.end_ms)
+        )
+        return f"{counter}\n{' --> '.join(stamps)}\n" + "\n".join(cue.sound_lines)
+    identifier = unique_identifier(f"sound-{cue.event_ids[0]}" if cue.event_ids else "sound", taken)
+    payload = vtt_writer.cue_payload(cue.sound_lines)
+    return vtt_writer.cue_block(
+        cue.start_ms, cue.end_ms, payload, identifier=identifier, settings=cue.edge_setting
     )
-    return "\n".join(rows)
 
 
-def _payload(cue: MergedCue, fmt: SubtitleFormat) -> str:
-    sound = [vtt_writer.escape(line) if fmt == "vtt" else line for line in cue.sound_lines]
-    own = [cue.dialogue.text] if cue.dialogue is not None and cue.dialogue.text else []
-    return "\n".join(own + sound)
+def _phrase(line: str) -> str:
+    """A caption line as a vocabulary phrase: marks and case gone, an end cue's "stops" too.
 
-
-def _edge(settings: str) -> Edge:
-    """The screen edge a dialogue cue sits at, from its WebVTT `line` setting.
-
-    >>> _edge(""), _edge("line:0"), _edge("line:85%,end align:start"), _edge("line:10%")
-    ('bottom', 'top', 'bottom', 'top')
+    >>> _phrase("[Music stops]"), _phrase("♪ upbeat music ♪"), _phrase("DOG BARKS")
+    ('music', 'upbeat music', 'dog barks')
     """
-    line = CueSettings.from_string(settings).line if settings else None
-    if not line or line == "auto":
-        return "bottom"  # the default place of horizontal cues
-    number = line.partition(",")[0]
-    if number.endswith("%"):
-        return "top" if float(number[:-1]) < 50 else "bottom"
-    return "top" if int(number) >= 0 else "bottom"
+    return line.strip(_MARKS).lower().removesuffix(" stops").strip()
 
 
-@dataclass(frozen=True, slots=True)
-class _Piece:
-    """A sound cue, or one part of a cue too long for the line limit, with its ideal timing."""
-
-    lines: tuple[str, ...]
-    event_ids: tuple[str, ...]
-    start_ms: int
-    end_ms: int
-    part: str = ""  # "part 2 of 3" for split cues
-
-
-def _pieces(cue: Cue, layout: Layout) -> list[_Piece]:
-    """Re-wrap lines longer than the limit and split cues with too many lines into parts
-    that follow one another over the cue's time."""
-    lines = tuple(w for line in cue.lines if line.strip() for w in wrap(line.strip(), layout))
-    if not lines:
-        return []
-    chunks = [lines[i : i + layout.max_lines] for i in range(0, len(lines), layout.max_lines)]
-    if len(chunks) == 1:
-        return [_Piece(lines, cue.event_ids, cue.start_ms, cue.end_ms)]
-    share = max((cue.end_ms - cue.start_ms) // len(chunks), 1)
-    return [
-        _Piece(
-            chunk,
-            cue.event_ids,
-            cue.start_ms + k * share,
-            cue.start_ms + (k + 1) * share,
-            f"part {k + 1} of {len(chunks)}",
-        )
-        for k, chunk in enumerate(chunks)
-    ]
+@lru_cache(maxsize=1)
+def _wording_priorities() -> dict[str, int]:
+    """Every wording of the bundled vocabulary (both conventions) -> its concept's priority."""
+    try:
+        data = yaml.safe_load(_VOCABULARY.read_text(encoding="utf-8"))
+    except (OSError, yaml.YAMLError):
+        return {}
+    found: dict[str, int] = {}
+    for spec in data.values() if isinstance(data, dict) else ():
+        for wordings in (spec.get("classes") or {}).values():
+            for phrase in wordings:
+                found[phrase] = max(found.get(phrase, 0), int(spec.get("priority", 2)))
+    return found
 
 
-class _Board:
-    """The merge in progress: dialogue, sound lines added to it, and sound cues placed so far."""
+def _matches(dialogue_lines: Sequence[str], sound_lines: Sequence[str]) -> bool:
+    """The dialogue cue shows the sound's lines: as its whole text, or as its last lines."""
+    wanted = [line.strip() for line in sound_lines if line.strip()]
+    have = [line.strip() for line in dialogue_lines if line.strip()]
+    return bool(wanted) and have[len(have) - len(wanted) :] == wanted
 
-    def __init__(self, track: SubtitleTrack, style: Style) -> None:
-        self.track, self.style, self.layout = track, style, style.layout
-        self.dialogue = sorted(track.cues, key=lambda c: (c.start_ms, c.end_ms))
-        self.added: list[list[tuple[tuple[str, ...], tuple[str, ...]]]] = [[] for _ in self.dialogue]
-        self.edges: list[Edge] = [
-            _edge(d.settings) if track.format == "vtt" else "bottom" for d in self.dialogue
-        ]
-        self.starts = [d.start_ms for d in self.dialogue]
-        self.longest = max((d.end_ms - d.start_ms for d in self.dialogue), default=0)
-        self.sounds: dict[Edge, list[tuple[int, int]]] = {"top": [], "bottom": []}
-        self.placed: list[MergedCue] = []
 
-    # -- what blocks a time range -------------------------------------------------------
-
-    def _near_dialogue(self, start: int, end: int) -> list[int]:
-        """Indices of dialogue cues that could overlap [start - margin, end + margin)."""
-        margin = self.layout.min_gap_ms
-        first = bisect_left(self.starts, start - self.longest - margin)
-        last = bisect_right(self.starts, end + margin)
-        return [i for i in range(first, last) if self.dialogue[i].end_ms > start - margin]
-
-    def _blockers(self, start: int, end: int, edge: Edge | None) -> list[tuple[int, int]]:
-        """Intervals a sound cue at `edge` must keep clear of (None = default place: all dialogue)."""
-        wide = (
-            self.layout.sync_tolerance_ms
-            + max(self.layout.max_duration_ms, end - start)
-            + self.layout.min_gap_ms
-        )
-        near = self._near_dialogue(start - wide, end + wide)
-        dialogue = [
-            (self.dialogue[i].start_ms, self.dialogue[i].end_ms)
-            for i in near
-            if edge is None or self.edges[i] == edge
-        ]
-        return dialogue + self.sounds[edge or "bottom"]
-
-    def _fits(self, start: int, end: int, blockers: list[tuple[int, int]]) -> bool:
-        """No overlap, and every gap to a neighbour either 0 or at least min_gap_ms."""
-        for a, b in blockers:
-            if start < b and a < end:
-                return False
-            gap = a - end if a >= end else start - b
-            if 0 < gap < self.layout.min_gap_ms:
-                return False
-        return start >= 0
-
-    def _slot(self, starts: list[int], piece: _Piece, edge: Edge | None) -> tuple[int, int] | None:
-        """The first start (in the order given) with an end that fits; end kept near the ideal."""
-        need = max(self.layout.min_duration_ms, reading_ms(piece.lines, self.layout))
-        desired = max(need, min(piece.end_ms - piece.start_ms, self.layout.max_duration_ms))
-        longest = max(desired, self.layout.max_duration_ms)
-        for start in starts:
-            blockers = self._blockers(start, start + desired, edge)
-            ends = {start + desired, start + need}
-            for a, _ in blockers:
-                ends.update((a, a - self.layout.min_gap_ms))
-            for end in sorted(
-                (e for e in ends if start + need <= e <= start + longest),
-                key=lambda e: (abs(e - start - desired), -e),
-            ):
-                if self._fits(start, end, blockers):
-                    return start, end
-        return None
-
-    # -- the strategies -----------------------------------------------------------------
-
-    def place(self, piece: _Piece) -> SoundOutcome:
-        text = " / ".join(piece.lines)
-        suffix = f" ({piece.part})" if piece.part else ""
-
-        def outcome(action: Action, slot: tuple[int, int] | None, detail: str) -> SoundOutcome:
+def _already_there(dialogue: SubtitleTrack, cue: Cue, tolerance_ms: int) -> SoundOutcome | None:
+    """An outcome `present` when a dialogue cue near the sound's start already shows its text."""
+    for d in dialogue.cues:
+        if abs(d.start_ms - cue.start_ms) <= tolerance_ms and _matches(
+            plain_lines(d.text, dialogue.format), cue.lines
+        ):
+            where = d.location or vtt_writer.timestamp(d.start_ms)
             return SoundOutcome(
-                piece.event_ids,
-                text,
-                piece.start_ms,
-                piece.end_ms,
-                action,
-                slot[0] if slot else None,
-                slot[1] if slot else None,
-                detail + suffix,
+                cue.event_ids,
+                " / ".join(cue.lines),
+                cue.start_ms,
+                cue.end_ms,
+                "present",
+                d.start_ms,
+                d.end_ms,
+                f"already in the dialogue file ({where}), from an earlier merge; not added again",
             )
+    return None
 
-        overlapping = [
-            i
-            for i in self._clashing(piece)
-            if self.dialogue[i].start_ms < piece.end_ms and piece.start_ms < self.dialogue[i].end_ms
-        ]
-        slot = None if overlapping else self._slot([piece.start_ms], piece, None)
-        if slot is not None:
-            self._put(piece, slot, None)
-            if slot == (piece.start_ms, piece.end_ms):
-                return outcome("kept", slot, "clear of dialogue")
-            change = "lengthened" if slot[1] > piece.end_ms else "shortened"
-            return outcome(
-                "retimed",
-                slot,
-                f"{change} to end at {vtt_writer.timestamp(slot[1])} for the display-time and gap limits",
-            )
-        reasons = [f"clashes with {self._clash_text(piece)}"]
-        for strategy in _FALLBACKS[self.style.merge.strategy]:
-            if strategy == "position" and self.track.format == "vtt":
-                edge, why = self._free_edge(piece)
-                slot = self._slot([piece.start_ms], piece, edge) if edge else None
-                if edge and slot:
-                    self._put(piece, slot, edge)
-                    return outcome("positioned", slot, f"shown at the {edge} edge, away from the dialogue")
-                reasons.append(why or f"the {edge} edge is busy")
-            elif strategy == "combine":
-                index, why = self._combinable(piece)
-                if index is not None:
-                    self.added[index].append((piece.lines, piece.event_ids))
-                    d = self.dialogue[index]
-                    return outcome(
-                        "combined",
-                        (d.start_ms, d.end_ms),
-                        f"added as a line of the dialogue cue at {vtt_writer.timestamp(d.start_ms)}",
-                    )
-                reasons.append(why)
-            elif strategy == "move":
-                slot = self._slot(self._move_starts(piece), piece, None)
-                if slot is not None:
-                    self._put(piece, slot, None)
-                    if slot[0] == piece.start_ms:
-                        return outcome(
-                            "moved",
-                            slot,
-                            f"shortened to end at {vtt_writer.timestamp(slot[1])}, in the gap before the "
-                            "dialogue",
-                        )
-                    return outcome(
-                        "moved", slot, f"moved {slot[0] - piece.start_ms:+d} ms into a dialogue gap"
-                    )
-                reasons.append(f"no free time within {self.layout.sync_tolerance_ms} ms")
-        return outcome("dropped", None, "; ".join(reasons))
 
-    def _put(self, piece: _Piece, slot: tuple[int, int], edge: Edge | None) -> None:
-        insort(self.sounds[edge or "bottom"], slot)
-        self.placed.append(MergedCue(slot[0], slot[1], None, piece.lines, piece.event_ids, edge))
+def check_dialogue(dialogue: SubtitleTrack) -> None:
+    """Refuse a dialogue file that is captioner's own sound track or merged track (by its
+    record or merge NOTE), before any work is done.
 
-    def _clashing(self, piece: _Piece) -> list[int]:
-        end = max(piece.end_ms, piece.start_ms + self.layout.min_duration_ms)
-        gap = self.layout.min_gap_ms
-        return [
-            i
-            for i in self._near_dialogue(piece.start_ms, end)
-            if self.dialogue[i].start_ms < end + gap and piece.start_ms - gap < self.dialogue[i].end_ms
-        ]
-
-    def _clash_text(self, piece: _Piece) -> str:
-        clashing = self._clashing(piece)
-        if not clashing:
-            return "another sound cue"
-        first = self.dialogue[clashing[0]]
-        return f"dialogue {vtt_writer.timestamp(first.start_ms)}-{vtt_writer.timestamp(first.end_ms)}"
-
-    def _free_edge(self, piece: _Piece) -> tuple[Edge | None, str]:
-        edges = {self.edges[i] for i in self._clashing(piece)}
-        if len(edges) > 1:
-            return None, "dialogue fills both screen edges"
-        return (_OTHER_EDGE[edges.pop()] if edges else "top"), ""
-
-    def _combinable(self, piece: _Piece) -> tuple[int | None, str]:
-        """The dialogue cue this sound can join as extra line(s), or why none can."""
-        tolerance = self.layout.sync_tolerance_ms
-        overlapping = [
-            i
-            for i in self._near_dialogue(piece.start_ms, piece.end_ms)
-            if self.dialogue[i].start_ms < piece.end_ms and piece.start_ms < self.dialogue[i].end_ms
-        ]
-        timely = sorted(
-            (i for i in overlapping if abs(self.dialogue[i].start_ms - piece.start_ms) <= tolerance),
-            key=lambda i: abs(self.dialogue[i].start_ms - piece.start_ms),
+    Raises:
+        SubtitleError: naming the file and the block found.
+    """
+    mark = _OURS.search(dialogue.source.text) if dialogue.source else None
+    if mark:
+        raise SubtitleError(
+            dialogue.name,
+            f"holds sound captions captioner wrote (its '{mark.group(1)}' block), not only dialogue",
+            "merge into the original dialogue subtitles instead",
         )
-        if not timely:
-            return None, f"no overlapping dialogue cue starts within {tolerance} ms of it"
-        why = ""
-        for i in timely:
-            d = self.dialogue[i]
-            lines = (
-                plain_lines(d.text, self.track.format)
-                + tuple(x for lines, _ in self.added[i] for x in lines)
-                + piece.lines
-            )
-            longest = max(len(line) for line in lines)
-            read = max(self.layout.min_duration_ms, reading_ms(lines, self.layout))
-            if len(lines) > self.layout.max_lines:
-                why = f"with the dialogue it would make {len(lines)} lines (limit {self.layout.max_lines})"
-            elif longest > self.layout.max_chars_per_line:
-                why = (
-                    f"with the dialogue it would have a {longest}-character line (limit "
-                    f"{self.layout.max_chars_per_line})"
-                )
-            elif d.end_ms - d.start_ms < read:
-                why = (
-                    f"with the dialogue it needs {read} ms on screen, the cue lasts {d.end_ms - d.start_ms} "
-                    "ms"
-                )
-            else:
-                return i, ""
-        return None, why
 
-    def _move_starts(self, piece: _Piece) -> list[int]:
-        """Candidate starts within the sync tolerance, nearest first (later wins a tie)."""
-        tolerance, gap = self.layout.sync_tolerance_ms, self.layout.min_gap_ms
-        need = max(self.layout.min_duration_ms, reading_ms(piece.lines, self.layout))
-        desired = max(need, min(piece.end_ms - piece.start_ms, self.layout.max_duration_ms))
-        candidates = {piece.start_ms}
-        for a, b in self._blockers(piece.start_ms - tolerance, piece.start_ms + tolerance + desired, None):
-            candidates.update((b, b + gap, a - desired, a - need, a - gap - desired, a - gap - need))
-        near = (s for s in candidates if abs(s - piece.start_ms) <= tolerance and s >= 0)
-        return sorted(near, key=lambda s: (abs(s - piece.start_ms), s < piece.start_ms))
+
+def _refuse_sound_tracks(dialogue: SubtitleTrack, sounds: Sequence[Cue], tolerance_ms: int) -> None:
+    """Refuse a dialogue file that is captioner's own track, or whose cues are the sound cues."""
+    check_dialogue(dialogue)
+    if dialogue.cues and all(
+        any(
+            abs(d.start_ms - s.start_ms) <= tolerance_ms
+            and [x.strip() for x in plain_lines(d.text, dialogue.format) if x.strip()] == list(s.lines)
+            for s in sounds
+        )
+        for d in dialogue.cues
+    ):
+        raise SubtitleError(
+            dialogue.name,
+            "its cues are the sound cues themselves (same text and times), so merging would show each twice",
+            "pass the dialogue subtitles, not the sound captions",
+        )
+
+
+def _with_source(track: SubtitleTrack) -> SubtitleTrack:
+    """A track built in code, written out and read back so the merge can work on its text."""
+    return parse_subtitles(delivery_text(track), track.format, name=track.name)

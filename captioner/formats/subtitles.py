@@ -25,6 +25,7 @@ from webvtt.errors import MalformedCaptionError, MalformedFileError
 
 from ..errors import SubtitleError
 from ..events import Span
+from .textblocks import LINE_END, BlockSpan, Source, block_span, line_spans, newline_of
 
 SubtitleFormat = Literal["vtt", "srt"]
 _FIX = "fix that line or export the file again"
@@ -34,6 +35,7 @@ _TAG = re.compile(r"<[^>]*>|\{\\[^}]*\}")  # WebVTT/SRT inline tags and SRT {\an
 # each side, separated by any of , . : (or their full-width forms), then the arrow.
 _SRT_STAMP = r"\d+[,.:，．。：]\d+[,.:，．。：]\d+[,.:，．。：]\d*"
 _SRT_TIMING = re.compile(rf"^\s*{_SRT_STAMP} *-[ -] *> *{_SRT_STAMP}")
+_SRT_PARTS = re.compile(r"(\d+)[,.:，．。：](\d+)[,.:，．。：](\d+)[,.:，．。：](\d*)")
 
 
 @dataclass(frozen=True, slots=True)
@@ -47,6 +49,8 @@ class SubtitleCue:
     settings: str = ""
     # where the cue's timing line is, as "FILE, line N", for messages; not part of equality
     location: str = field(default="", compare=False, repr=False)
+    # where the cue's block sits in the file's text (see `Source`); not part of equality
+    span: BlockSpan | None = field(default=None, compare=False, repr=False)
 
 
 @dataclass(frozen=True, slots=True)
@@ -57,6 +61,7 @@ class SubtitleTrack:
     format: SubtitleFormat
     cues: tuple[SubtitleCue, ...]
     header_blocks: tuple[str, ...] = ()  # STYLE and REGION blocks, as "STYLE\n..." text
+    source: Source | None = None  # the file's own text (None for a track built in code)
 
 
 def decode_text(path: Path, raw: bytes) -> str:
@@ -123,7 +128,8 @@ def read_track(path: Path) -> SubtitleTrack:
         raw = path.read_bytes()
     except OSError as exc:
         raise SubtitleError(path, f"cannot read ({exc.strerror})", "check its permissions") from exc
-    return parse_subtitles(decode_text(path, raw), fmt, name=str(path))
+    bom = raw.startswith((codecs.BOM_UTF8, codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE))
+    return parse_subtitles(decode_text(path, raw), fmt, name=str(path), bom=bom)
 
 
 def read_subtitles(path: Path) -> tuple[SubtitleCue, ...]:
@@ -131,26 +137,36 @@ def read_subtitles(path: Path) -> tuple[SubtitleCue, ...]:
     return read_track(path).cues
 
 
-def parse_subtitles(text: str, fmt: SubtitleFormat, *, name: str = "subtitles") -> SubtitleTrack:
+def parse_subtitles(
+    text: str, fmt: SubtitleFormat, *, name: str = "subtitles", bom: bool = False
+) -> SubtitleTrack:
     """Parse decoded subtitle text; `name` is used in messages and in each cue's `location`.
 
     A zero-length cue is kept here (so a merge passes it through); `dialogue_spans` skips it.
+    The text itself travels in the track's `source` (`bom`: the file started with one).
 
     Raises:
         SubtitleError: malformed content or a cue that ends before it starts, naming `name`
             and the line.
     """
-    text = text.lstrip("\ufeff")
+    source = Source(text.removeprefix("\ufeff"), bom or text.startswith("\ufeff"), newline_of(text))
+    text = source.text
+    rows = line_spans(text)
     cues, header = _parse_vtt(name, text) if fmt == "vtt" else (_parse_srt(name, text), ())
-    lines = _vtt_timing_lines(text) if fmt == "vtt" else _srt_timing_lines(text, cues)
+    timings = _vtt_timing_rows(text, rows) if fmt == "vtt" else _srt_timing_rows(text, rows, cues)
     cues = [
-        replace(cue, location=_where(name, lines[n] if n < len(lines) else 0)) for n, cue in enumerate(cues)
+        replace(cue, location=_where(name, timings[n] + 1), span=block_span(text, rows, timings[n]))
+        if n < len(timings)
+        else replace(cue, location=name)
+        for n, cue in enumerate(cues)
     ]
+    if fmt == "srt":
+        cues = [_trade_reading(cue, text) for cue in cues]
     for cue in cues:
         if cue.end_ms < cue.start_ms:
             raise SubtitleError(cue.location, "cue ends before or when it starts", _FIX)
     ordered = sorted(cues, key=lambda c: (c.start_ms, c.end_ms))  # stable: equal times keep file order
-    return SubtitleTrack(name, fmt, tuple(ordered), header)
+    return SubtitleTrack(name, fmt, tuple(ordered), header, source)
 
 
 def dialogue_spans(cues: Sequence[SubtitleCue]) -> tuple[Span, ...]:
@@ -195,29 +211,64 @@ def _where(name: str, line: int) -> str:
     return f"{name}, line {line}" if line > 0 else name
 
 
-def _vtt_timing_lines(text: str) -> list[int]:
+def _vtt_timing_rows(text: str, rows: Sequence[tuple[int, int]]) -> list[int]:
     # In a well-formed WebVTT file every line holding "-->" is a cue timing line (WebVTT
     # forbids the arrow in cue text and comments), so the n-th such line is the n-th cue's.
-    return [number for number, line in enumerate(text.splitlines(), start=1) if "-->" in line]
+    return [number for number, (start, end) in enumerate(rows) if "-->" in text[start:end]]
 
 
-def _srt_timing_lines(text: str, cues: Sequence[SubtitleCue]) -> list[int]:
-    """The line number of each cue's timing line, cues in file order.
+def _srt_timing_rows(text: str, rows: Sequence[tuple[int, int]], cues: Sequence[SubtitleCue]) -> list[int]:
+    """The row of each cue's timing line, cues in file order.
 
     SRT cue text may hold "-->" or even a line shaped like a timing line, so walk the file:
     the next timing-shaped line is this cue's, and its text lines are skipped before looking
     for the next cue's.
     """
-    rows = text.split("\n")  # the srt library breaks lines at \n (and \r\n) only
     found, row = [], 0
     for cue in cues:
-        while row < len(rows) and not _SRT_TIMING.match(rows[row]):
+        while row < len(rows) and not _SRT_TIMING.match(text[rows[row][0] : rows[row][1]]):
             row += 1
         if row == len(rows):
             break
-        found.append(row + 1)
+        found.append(row)
         row += 2 + cue.text.count("\n")  # the timing line, then the cue's text lines
     return found
+
+
+def _trade_reading(cue: SubtitleCue, text: str) -> SubtitleCue:
+    """Read an SRT fraction of other than three digits as a decimal fraction, as subtitle
+    software commonly does (`0:00:03,5` is 3.500 s; common practice), with a warning naming
+    the line: the srt library reads the digits as milliseconds (3.005 s)."""
+    if cue.span is None:
+        return cue
+    timing = LINE_END.split(text[cue.span.timing : cue.span.text_end + 1], maxsplit=1)[0]
+    stamps = _SRT_PARTS.findall(timing)[:2]
+    if len(stamps) != 2:
+        return cue
+    read = [_trade_ms(*parts) for parts in stamps]
+    if read == [cue.start_ms, cue.end_ms]:
+        return cue
+    odd = next(f"{h}:{m}:{s},{f}" for h, m, s, f in stamps if len(f) not in (0, 3))
+    warnings.warn(
+        f"{cue.location}: timestamp {odd!r} has {len(odd.rpartition(',')[2])} decimal digit(s); read as a "
+        f"fraction of a second ({_srt_stamp(read[0])} --> {_srt_stamp(read[1])}); write three digits "
+        "(e.g. 00:00:03,500) to silence this",
+        stacklevel=3,
+    )
+    return replace(cue, start_ms=read[0], end_ms=read[1])
+
+
+def _trade_ms(hours: str, minutes: str, seconds: str, fraction: str) -> int:
+    """
+    >>> _trade_ms("0", "00", "03", "5"), _trade_ms("00", "00", "03", "5000"), _trade_ms("0", "0", "3", "")
+    (3500, 3500, 3000)
+    """
+    whole = ((int(hours) * 60 + int(minutes)) * 60 + int(seconds)) * 1000
+    return whole + (round(int(fraction) * 10 ** (3 - len(fraction))) if fraction else 0)
+
+
+def _srt_stamp(ms: int) -> str:
+    return f"{ms // 3_600_000:02d}:{ms // 60_000 % 60:02d}:{ms // 1000 % 60:02d},{ms % 1000:03d}"
 
 
 def _stamp_ms(stamp: webvtt.models.Timestamp) -> int:

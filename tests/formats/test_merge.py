@@ -151,7 +151,7 @@ def test_sound_clear_of_dialogue_is_kept_in_time_order() -> None:
     assert merged.outcomes[0].action == "kept"
     text = dumps_merged(merged, note="demo")
     assert text == (
-        "WEBVTT\n\nNOTE\ndemo\n\n"
+        "WEBVTT\n\nNOTE captioner merge\ndemo\n\n"
         "00:00:01.000 --> 00:00:03.000\nMorning.\n\n"
         "sound-e1\n00:00:04.000 --> 00:00:06.500\n[kettle whistling]\n\n"
         "00:00:08.000 --> 00:00:10.000\nCoffee?\n"
@@ -353,8 +353,22 @@ def test_removing_the_sound_gives_back_the_dialogue_exactly(fmt: SubtitleFormat,
 
 
 def layout_violations(merged: MergedTrack, style: Style, fmt: SubtitleFormat) -> list[str]:
-    """Every created or changed cue checked against the style's limits (independent of the package)."""
+    """Every created or changed cue checked against the style's limits (independent of the package).
+
+    The one exception: an alert that no placement could fit is shown overlapping other cues
+    (the outcome says so, and it must be an alert); its line and duration limits still hold.
+    """
     layout, problems = style.layout, []
+    overlapping = {
+        (o.event_ids, o.placed_start_ms, o.placed_end_ms)
+        for o in merged.outcomes
+        if o.action == "overlapping"
+    }
+    problems += [
+        f"{o}: overlapping but not an alert"
+        for o in merged.outcomes
+        if o.action == "overlapping" and not o.alert
+    ]
 
     def plain(text: str) -> list[str]:
         return html.unescape(re.sub(r"<[^>]*>", "", text)).split("\n")
@@ -378,10 +392,10 @@ def layout_violations(merged: MergedTrack, style: Style, fmt: SubtitleFormat) ->
             problems.append(f"{cue}: on screen {duration} ms")
         if duration * layout.reading_rate_wpm < words * 60000:
             problems.append(f"{cue}: {words} words in {duration} ms")
-        if cue.dialogue is not None:
+        if cue.dialogue is not None or (cue.event_ids, cue.start_ms, cue.end_ms) in overlapping:
             continue
         for other in merged.cues:
-            if other is cue:
+            if other is cue or (other.event_ids, other.start_ms, other.end_ms) in overlapping:
                 continue
             if other.dialogue is not None:  # a sound in the default place must clear all dialogue
                 same_place = cue.edge is None or edge_of(other.dialogue) == cue.edge
@@ -472,9 +486,11 @@ def test_a_long_generated_merge_keeps_every_limit_and_every_dialogue_cue(
         (c.start_ms, c.end_ms, c.text) for c in track.cues
     ]
     actions = {o.action for o in merged.outcomes}
+    plain = {o.action for o in merged.outcomes if not o.alert}  # an alert is moved even under `drop`
     assert "kept" in actions and (strategy == "drop") == (
-        "moved" not in actions and "combined" not in actions and "positioned" not in actions
+        "moved" not in plain and "combined" not in plain and "positioned" not in plain
     )
+    assert all(o.action != "dropped" for o in merged.outcomes if o.alert)
 
 
 # -- command line -------------------------------------------------------------------------
