@@ -77,12 +77,16 @@ def build_parser() -> argparse.ArgumentParser:
         action="store_true",
         help="print a table of kept and dropped events with reasons (to stderr)",
     )
-    caption.add_argument("--force", action="store_true", help="replace existing output files")
+    caption.add_argument(
+        "--force",
+        action="store_true",
+        help="replace output files a person changed, keeping each old one as NAME.backup.EXT",
+    )
     caption.add_argument(
         "--update",
         action="store_true",
-        help="re-run over a .vtt you edited: keep every hand edit, addition and deletion, add new cues only "
-        "where you did not work (rewrites --events-json too)",
+        help="re-run over a .vtt you edited: keep every cue in it as it is and every deletion, add new "
+        "cues only where it has none (rewrites --events-json too)",
     )
     caption.add_argument("--quiet", action="store_true", help="no progress or notices")
 
@@ -176,7 +180,11 @@ def build_parser() -> argparse.ArgumentParser:
         action="store_true",
         help="print a table of the sound cues and what the merge did (to stderr)",
     )
-    merge.add_argument("--force", action="store_true", help="replace existing output files")
+    merge.add_argument(
+        "--force",
+        action="store_true",
+        help="replace output files a person changed, keeping each old one as NAME.backup.EXT",
+    )
     merge.add_argument("--quiet", action="store_true", help="no notices")
 
     review = commands.add_parser(
@@ -237,8 +245,8 @@ def build_parser() -> argparse.ArgumentParser:
             "under -o; where NAME.srt or NAME.vtt dialogue subtitles sit beside a video they mark\n"
             "dialogue, and NAME.merged.* is written too. A run manifest in the output folder lets a\n"
             "re-run skip unchanged files. An output a person edited is never replaced: the new draft\n"
-            "goes beside it as ....new. Cluster workers must see the media under the same paths as\n"
-            "this machine."
+            "goes beside it as NAME.sounds.draft.vtt, and the merge is built from the person's sound\n"
+            "track. Cluster workers must see the media under the same paths as this machine."
         ),
         epilog=(
             "examples:\n"

@@ -72,8 +72,8 @@ def _notices(quiet: bool) -> Callable[[str], None]:
 
 
 def _caption(args: argparse.Namespace) -> int:
-    from . import media, packs, pipeline, update
-    from .formats import merged_track_path, sound_track_path, write_atomic
+    from . import media, ownership, packs, pipeline, update
+    from .formats import merged_track_path, sound_track_path
     from .formats.merge import check_dialogue
     from .formats.subtitles import dialogue_spans, read_track
     from .report import explain_table, merge_summary, merge_table, progress_bar
@@ -85,7 +85,8 @@ def _caption(args: argparse.Namespace) -> int:
     track = read_track(args.dialogue) if args.dialogue else None
     if args.merge and track is None:
         raise SubtitleError("--merge", "needs the dialogue track to merge into", "add --dialogue SUBS")
-    if args.merge and track is not None:
+    merging = bool(args.merge and track is not None)
+    if merging and track is not None:
         check_dialogue(track)  # before the classifier runs
         fmt, output = _merged_target(
             args.output, args.format, track, args.dialogue, merged_track_path(args.input, track.format)
@@ -93,7 +94,17 @@ def _caption(args: argparse.Namespace) -> int:
     else:
         fmt, output = _output_target(args)
     updating = args.update and update.updatable(output, merge=args.merge)
-    _refuse_overwrite((output, args.events_json), (args.input, args.dialogue), force=args.force or updating)
+    # A merged track a person changed stays; the new merge goes beside it as a draft.
+    keep_merged = merging and output is not None and not args.force and _changed(output)
+    _refuse_overwrite(
+        (output, args.events_json),
+        (args.input, args.dialogue),
+        force=args.force or updating,
+        allowed={output} if keep_merged and output is not None else set(),
+    )
+    # The sound track a person edited is the truth for the sound cues of a merge.
+    edited_sounds = sound_track_path(args.input, "vtt")
+    merge_edited = merging and _changed(edited_sounds)
     dialogue = dialogue_spans(track.cues) if track is not None else None
     say = _notices(args.quiet)
     media.probe(args.input)  # a mistyped or unreadable input fails before any model download
@@ -121,16 +132,22 @@ def _caption(args: argparse.Namespace) -> int:
     if updating and output is not None:
         text, summary = update.update_vtt(output, result.cues, note)
         say(summary.line())
+    elif merge_edited and args.dialogue is not None:
+        text = pipeline.merge_kept_track(edited_sounds, args.dialogue, style)
+        say(f"merged the sound cues of {edited_sounds} as you left them (changed since captioner wrote it)")
     else:
-        text = (
-            drafts.track if drafts.merged_text is None else drafts.merged_text
-        )  # a WebVTT track records its cues for a later --update
-    if output is None:
+        text = drafts.track if drafts.merged_text is None else drafts.merged_text
+    files: list[tuple[Path, str]] = []
+    target = output
+    if output is not None:
+        target = ownership.draft_path(output) if keep_merged else output
+        files.append((target, text))
+    else:
         sys.stdout.write(text)
-    else:
-        write_atomic(output, text, force=args.force or updating)
     if args.events_json:
-        write_atomic(args.events_json, drafts.events_json(), force=args.force or updating)
+        files.append((Path(args.events_json), drafts.events_json()))
+    kept_whole = {output} if updating else set()  # an update keeps every cue of it already
+    _write_with_backups(files, force=args.force or updating, keep=kept_whole)
     if args.explain:
         print(explain_table(result), file=sys.stderr)
         if merged is not None:
@@ -139,7 +156,9 @@ def _caption(args: argparse.Namespace) -> int:
         _merge_warnings(merged)
     if result.empty_stream_notice():
         say(result.empty_stream_notice())
-    if output is not None and not updating:
+    if keep_merged:
+        say(f"kept {output} as you left it; the new merge is in {target}")
+    elif output is not None and not updating:
         say(
             f"{len(result.cues)} cue(s) written to {output}"
             if merged is None
@@ -148,10 +167,41 @@ def _caption(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def _changed(path: Path) -> bool:
+    """Whether a file exists and is not exactly what captioner wrote into it."""
+    from .ownership import is_ours
+
+    return path.exists() and not is_ours(path)
+
+
+def _write_with_backups(files: list[tuple[Path, str]], *, force: bool, keep: set[Path | None]) -> None:
+    """Write the files together, with a backup of each changed file that `force` replaces
+    landing first (files in `keep` are rewritten with all their cues, so need none); each
+    backup is named once it is in place, even with --quiet: it is where the person's work is."""
+    from .formats import write_together
+    from .ownership import backup_path
+
+    backups: dict[Path, tuple[Path, bytes]] = {}  # changed file -> (its backup, its bytes)
+    for path, text in files:
+        if not force or path in keep or not _changed(path):
+            continue
+        old = path.read_bytes()
+        if old != text.encode("utf-8"):
+            backups[path] = (backup_path(path), old)
+    write_together([*backups.values(), *files])
+    for path, (backup, _) in backups.items():
+        print(
+            f"captioner: kept the old {path} as {backup}: it differs from what captioner last wrote there",
+            file=sys.stderr,
+        )
+
+
 def _merge(args: argparse.Namespace) -> int:
-    from .formats import sidecar, write_atomic
-    from .formats.merge import dumps_merged, merge_json, merge_tracks, sound_cues_from_track
+    from . import pipeline
+    from .formats import sidecar
+    from .formats.merge import merge_json, sound_cues_from_track
     from .formats.subtitles import read_track
+    from .ownership import sealed
     from .report import merge_summary, merge_table
     from .style import load_style
 
@@ -159,16 +209,18 @@ def _merge(args: argparse.Namespace) -> int:
     dialogue = read_track(args.dialogue_subs)
     _, output = _merged_target(args.output, None, dialogue, args.dialogue_subs, None)
     _refuse_overwrite((output, args.events_json), (args.sound_cues, args.dialogue_subs), force=args.force)
-    merged = merge_tracks(dialogue, sound_cues_from_track(read_track(args.sound_cues)), style)
     note = (
         f"Dialogue of {args.dialogue_subs.name} with the sound captions of {args.sound_cues.name}\n"
         f"merged by captioner {__version__}, style {style.name}; review before publishing"
     )
-    text = dumps_merged(merged, note)
+    merged, text = pipeline.merge_text(
+        dialogue, sound_cues_from_track(read_track(args.sound_cues)), style, note
+    )
+    files: list[tuple[Path, str]] = []
     if output is None:
         sys.stdout.write(text)
     else:
-        write_atomic(output, text, force=args.force)
+        files.append((output, text))
     if args.events_json:
         document = {
             "dialogue": args.dialogue_subs.name,
@@ -177,7 +229,8 @@ def _merge(args: argparse.Namespace) -> int:
             "strategy": style.merge.strategy,
             **merge_json(merged),
         }
-        write_atomic(args.events_json, sidecar.dumps(document), force=args.force)
+        files.append((Path(args.events_json), sealed(sidecar.dumps(document), "json")))
+    _write_with_backups(files, force=args.force, keep=set())
     if args.explain:
         print(merge_table(merged), file=sys.stderr)
     _merge_warnings(merged)
@@ -212,11 +265,16 @@ def _merged_target(
 
 
 def _refuse_overwrite(
-    outputs: tuple[Path | None, ...], inputs: tuple[Path | None, ...], *, force: bool
+    outputs: tuple[Path | None, ...],
+    inputs: tuple[Path | None, ...],
+    *,
+    force: bool,
+    allowed: set[Path] | None = None,
 ) -> None:
     """Check every output before any work, so a run never stops after writing half of them:
-    never an input file, never two outputs on one path, a writable folder, and no existing
-    file without --force."""
+    never an input file, never two outputs on one path, a writable folder, and no file a
+    person changed without --force (a file captioner wrote and nobody changed is replaced;
+    `allowed` files are dealt with by the caller)."""
     sources = {p.resolve() for p in inputs if p is not None}
     seen: set[Path] = set()
     for target in outputs:
@@ -235,11 +293,13 @@ def _refuse_overwrite(
             raise OutputError(target, f"folder {folder} does not exist", "create it or choose another path")
         if not os.access(folder, os.W_OK):
             raise OutputError(target, f"folder {folder} is not writable", "choose a writable folder")
-        if target.exists() and not force:
+        if not force and target not in (allowed or set()) and _changed(target):
+            update = "--update to keep every cue in it and add new ones, " if target.suffix == ".vtt" else ""
             raise OutputError(
                 target,
-                "already exists (it may hold hand edits)",
-                "pass --force to replace it, or choose another path",
+                "already exists and is not what captioner wrote into it (it may hold hand edits)",
+                f"pass {update}--force to replace it (the old file is kept as a backup), or choose another "
+                "path",
             )
 
 

@@ -9,8 +9,11 @@ Outputs of a video `NAME.EXT` (beside it, or mirrored under the output folder):
 `NAME.sounds.vtt|srt` (the sound captions), `NAME.sounds.json` (events and decisions) and,
 when a dialogue subtitle `NAME.srt|vtt` (or `NAME.LANG.srt|vtt`) sits beside the video,
 `NAME.merged.vtt|srt`.
-An output that differs from what the manifest says we wrote was edited by a person: it is
-left alone and the new draft is written beside it as `....new`.
+An output that differs from what the manifest says we wrote (and is not provably ours,
+see `captioner.ownership`) was edited by a person: it is left alone and the new draft is
+written beside it as `NAME.sounds.draft.vtt` (`ownership.draft_path`). A merged track is
+built from the sound track as the person left it. The outputs of one file land together
+(`formats.write_together`).
 """
 
 from __future__ import annotations
@@ -24,12 +27,11 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from . import packs
+from . import ownership, packs, pipeline
 from .dialogue_sources import choose_beside
-from .errors import MediaError, OutputError
-from .formats import Format, write_atomic
+from .errors import CaptionerError, MediaError, OutputError
+from .formats import Format, write_together
 from .manifest import (
-    EDITED_SUFFIX,
     MANIFEST_NAME,
     FileRecord,
     Fingerprint,
@@ -69,6 +71,7 @@ MEDIA_EXTENSIONS = frozenset(
         *(".wav", ".mp3", ".m4a", ".aac", ".flac", ".ogg", ".oga", ".opus", ".wma", ".aif", ".aiff"),
     }
 )
+_MERGED_FROM = "#merged-from"  # manifest key suffix: hash of the edited sound track a merge used
 _OUTPUT_LAYOUT = 2  # bump when output names or contents change for the same settings
 
 
@@ -119,8 +122,10 @@ def find_media(
             label = name if stems.count(stem.lower()) > 1 else stem
             # Another video's own subtitles (b.en.srt beside b.en.mp4) are not this one's.
             others = {f"{o}{e}" for o in stems if o != stem.lower() for e in (".srt", ".vtt")}
+            # Our drafts and backups (a.sounds.draft.vtt) are never anyone's dialogue either.
+            kept = {n.lower() for n in filenames if ownership.KEPT_NAME.search(n)}
             choice = choose_beside(
-                base / name, filenames, stem, language=dialogue_language, taken=ours | others
+                base / name, filenames, stem, language=dialogue_language, taken=ours | others | kept
             )
             dialogue = choice.path
             relative = (base / name).relative_to(folder)
@@ -234,6 +239,7 @@ def run_batch(
                 and previous is not None
                 and previous.status == "done"
                 and all(p.exists() for p in item.outputs.values())
+                and _merge_is_current(item, previous, root)
             ):
                 skipped += 1
             elif same and previous is not None and previous.status == "failed" and not options.retry_failed:
@@ -258,7 +264,7 @@ def run_batch(
             ) as results:
                 for drafted in results:
                     task = jobs[drafted.relative]
-                    _store(task, drafted, root, manifest, tally)
+                    _store(task, drafted, root, manifest, tally, options.style)
                     if drafted.notice:
                         bar.wrap(say)(drafted.notice)
                     if tally.last_error:
@@ -338,7 +344,9 @@ class _Tally:
         self.last_error = ""
 
 
-def _store(task: _Task, drafted: Drafted, root: Path, manifest: RunManifest, tally: _Tally) -> None:
+def _store(
+    task: _Task, drafted: Drafted, root: Path, manifest: RunManifest, tally: _Tally, style: Style
+) -> None:
     """Put one file's outputs in place and record it; see `captioner.manifest` for the order."""
     tally.last_error = ""
     previous = task.previous
@@ -364,20 +372,34 @@ def _store(task: _Task, drafted: Drafted, root: Path, manifest: RunManifest, tal
             f"{task.item.path}: worker {drafted.worker} has model pack version {drafted.pack_version}, the "
             f"run expects {task.settings.pack_version}; install the same pack on every worker"
         )
+    recorded = {h for k, h in old_outputs.items() if not k.endswith(_MERGED_FROM)} | set(old_pending.values())
+
+    def ours(path: Path) -> bool:
+        return file_hash(path) in recorded or ownership.is_ours(path)
+
+    texts = dict(drafted.texts)
+    edited = {
+        kind for kind in texts if task.item.outputs[kind].exists() and not ours(task.item.outputs[kind])
+    }
+    merged_from: dict[str, str] = {}  # the edited sound track a merge was built from, by its hash
+    if not error and "caption" in edited and "merged" in texts and task.item.dialogue is not None:
+        caption = task.item.outputs["caption"]
+        try:  # the person's sound track, not the machine draft, goes into the delivered merge
+            texts["merged"] = pipeline.merge_kept_track(caption, task.item.dialogue, style)
+            merged_from[_key(caption, root) + _MERGED_FROM] = file_hash(caption) or ""
+        except CaptionerError as exc:
+            error = str(exc)
     if error:
         manifest.save(dataclasses.replace(record, error=error, finished_at=time.time()))
         tally.last_error = error
         return
     writes: list[tuple[Path, str, str]] = []
-    for kind, text in drafted.texts.items():
+    for kind, text in texts.items():
         target = task.item.outputs[kind]
-        digest = text_hash(text)
-        key = _key(target, root)
-        current = file_hash(target)
-        if current is not None and current not in (old_outputs.get(key), old_pending.get(key), digest):
-            tally.edited.append(key)
-            target = target.with_name(target.name + EDITED_SUFFIX)
-        writes.append((target, text, digest))
+        if kind in edited:
+            tally.edited.append(_key(target, root))
+            target = ownership.draft_path(target, ours)
+        writes.append((target, text, text_hash(text)))
     pending = {_key(path, root): digest for path, _, digest in writes}
     manifest.save(
         dataclasses.replace(
@@ -389,17 +411,15 @@ def _store(task: _Task, drafted: Drafted, root: Path, manifest: RunManifest, tal
             finished_at=time.time(),
         )
     )
-    written = dict(old_outputs)
     try:
-        for path, text, digest in writes:
-            _put(path, text, digest)
-            written[_key(path, root)] = digest
+        _put([(path, text) for path, text, digest in writes if file_hash(path) != digest])
     except OutputError as exc:
+        # Nothing of this file landed; "writing" makes the next run try it again by itself.
         manifest.save(
             dataclasses.replace(
                 record,
+                status="writing",
                 error=str(exc),
-                outputs=written,
                 pending=old_pending | pending,
                 finished_at=time.time(),
             )
@@ -412,7 +432,7 @@ def _store(task: _Task, drafted: Drafted, root: Path, manifest: RunManifest, tal
             status="done",
             error="",
             cues=drafted.cues,
-            outputs=written,
+            outputs=old_outputs | pending | merged_from,
             pending={},
             finished_at=time.time(),
         )
@@ -423,27 +443,32 @@ def _store(task: _Task, drafted: Drafted, root: Path, manifest: RunManifest, tal
     tally.merged += "merged" in drafted.texts
 
 
+def _merge_is_current(item: MediaFile, previous: FileRecord, root: Path) -> bool:
+    """Whether the merged track was built from the sound track as it is now: a person who
+    edits the sound track after a run gets the merge rebuilt from it by the next run."""
+    if "merged" not in item.outputs:
+        return True
+    key = _key(item.outputs["caption"], root)
+    current = file_hash(item.outputs["caption"])
+    return current in (previous.outputs.get(key), previous.outputs.get(key + _MERGED_FROM))
+
+
 def _key(path: Path, root: Path) -> str:
     return path.relative_to(root).as_posix() if path.is_relative_to(root) else str(path)
 
 
-def _put(path: Path, text: str, digest: str) -> None:
-    """Write atomically unless the file already holds exactly this text."""
-    try:
-        path.parent.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise OutputError(
-            path.parent, f"cannot create the folder ({exc.strerror})", "check the output folder's permissions"
-        ) from exc
-    # A run killed inside write_atomic leaves its hidden temporary file: clear those first.
-    for stray in path.parent.glob(f".{_glob_escape(path.name)}.*.tmp"):
-        stray.unlink(missing_ok=True)
-    if file_hash(path) != digest:
-        write_atomic(path, text, force=True)
-
-
-def _glob_escape(name: str) -> str:
-    return "".join(f"[{c}]" if c in "*?[" else c for c in name)
+def _put(files: list[tuple[Path, str]]) -> None:
+    """Write the files of one media file together (clearing first what a killed run left)."""
+    for path, _ in files:
+        try:
+            path.parent.mkdir(parents=True, exist_ok=True)
+        except OSError as exc:
+            raise OutputError(
+                path.parent,
+                f"cannot create the folder ({exc.strerror})",
+                "check the output folder's permissions",
+            ) from exc
+    write_together(list(files))
 
 
 # -- progress -----------------------------------------------------------------------------------

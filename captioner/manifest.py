@@ -29,7 +29,6 @@ from .errors import OutputError
 MANIFEST_NAME = "captioner-batch.sqlite3"
 SCHEMA_VERSION = 1
 _EDGE_BYTES = 1 << 20  # bytes hashed at each end of a media file
-EDITED_SUFFIX = ".new"  # beside a hand-edited output, our new draft
 
 Status = Literal["done", "failed", "writing"]  # "writing": outputs were being put in place
 
@@ -54,7 +53,7 @@ CREATE TABLE IF NOT EXISTS files (
     load_s REAL,                    -- model loading paid by this file (0 when warm)
     worker TEXT NOT NULL DEFAULT '',
     finished_at REAL NOT NULL,      -- Unix time
-    outputs TEXT NOT NULL DEFAULT '{}',  -- JSON {output path: sha256 of what we wrote}
+    outputs TEXT NOT NULL DEFAULT '{}',  -- JSON {output path: sha256 of what we wrote} (+ '#merged-from')
     pending TEXT NOT NULL DEFAULT '{}'   -- JSON, hashes of outputs being written right now
 );
 CREATE TABLE IF NOT EXISTS runs (
@@ -124,7 +123,7 @@ def fingerprint(path: Path) -> Fingerprint:
 
 
 def text_hash(text: str) -> str:
-    """SHA-256 of text as write_atomic stores it (UTF-8)."""
+    """SHA-256 of text as write_together stores it (UTF-8)."""
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
 
 
@@ -269,7 +268,7 @@ class Summary:
     cues: int
     wall_s: float
     workers: int  # local worker processes (0: in the calling process, or on the cluster)
-    edited: tuple[str, ...]  # outputs a person changed; the new draft went beside each as .new
+    edited: tuple[str, ...]  # outputs a person changed; the new draft went beside each (NAME.draft.EXT)
     failures: tuple[tuple[str, str], ...]  # (file, error), this run's and earlier ones
     merged: int  # files that also got a merged dialogue + sound track
     manifest: str
@@ -317,8 +316,8 @@ def summary_table(summary: Summary) -> str:
     ]
     if summary.edited:
         lines.append(
-            f"kept {len(summary.edited)} hand-edited output(s); the new draft is beside each as "
-            f"{EDITED_SUFFIX}:"
+            f"kept {len(summary.edited)} hand-edited output(s) as you left them; the new draft is beside "
+            "each as NAME.draft.EXT:"
         )
         lines += [f"  {name}" for name in summary.edited]
     if summary.failed_before:

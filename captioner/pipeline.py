@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import dataclasses
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -17,8 +17,16 @@ from .dialogue_sources import embedded_dialogue, embedded_stream
 from .errors import StyleError
 from .events import SoundEvent, Span, detect_events
 from .formats import WRITERS, sidecar
-from .formats.merge import MergedTrack, dropped_decisions, dumps_merged, merge_json, merge_tracks
-from .formats.subtitles import SubtitleTrack
+from .formats.merge import (
+    MergedTrack,
+    dropped_decisions,
+    dumps_merged,
+    merge_json,
+    merge_tracks,
+    sound_cues_from_track,
+)
+from .formats.subtitles import SubtitleTrack, read_track
+from .ownership import sealed
 from .packs import LoadedPack
 from .policy import Decision, select_events
 from .scores import ScoreTrack, compute_scores
@@ -149,7 +157,7 @@ class Drafts:
                 "strategy": self.result.style.merge.strategy,
                 **merge_json(self.merged),
             }
-        return sidecar.dumps(document)
+        return sealed(sidecar.dumps(document), "json")  # the seal tells our own file from a changed one
 
 
 def draft_outputs(
@@ -163,7 +171,7 @@ def draft_outputs(
     """Render a captioned file: the sound track in `fmt` ("vtt" or "srt") and, given a
     dialogue track, that track merged with the sound cues."""
     note = (
-        f"Sound captions drafted by captioner {__version__} from {result.source.name}\n"
+        f"{update.NOTE_OPENING} {__version__} from {result.source.name}\n"
         f"style {result.style.name}, model pack {result.pack_name}; review before publishing"
     )
     if result.stream_line():
@@ -171,11 +179,43 @@ def draft_outputs(
     merged, merged_text = None, None
     if merge_with is not None:
         priorities = {e.event_id: e.priority for e in result.events}
-        merged = merge_tracks(merge_with, result.cues, result.style, priorities=priorities)
+        merged, merged_text = merge_text(
+            merge_with,
+            result.cues,
+            result.style,
+            note + f"\nmerged with the dialogue of {dialogue_name}",
+            priorities=priorities,
+        )
         drops = {d.event_id: d for d in dropped_decisions(merged)}
         result = dataclasses.replace(
             result, decisions=tuple(drops.get(d.event_id, d) for d in result.decisions)
         )
-        merged_text = dumps_merged(merged, note + f"\nmerged with the dialogue of {dialogue_name}")
     track = update.recorded_vtt(result.cues, note) if fmt == "vtt" else WRITERS[fmt](result.cues, note)
     return Drafts(result, vocabulary, note, track, merged, merged_text, dialogue_name)
+
+
+def merge_text(
+    dialogue: SubtitleTrack,
+    sounds: Sequence[Cue],
+    style: Style,
+    note: str,
+    *,
+    priorities: dict[str, int] | None = None,
+) -> tuple[MergedTrack, str]:
+    """Dialogue and sound cues as one track, and its text (a WebVTT one sealed, so a later
+    run can tell it from a hand-edited copy)."""
+    merged = merge_tracks(dialogue, sounds, style, priorities=priorities)
+    return merged, sealed(dumps_merged(merged, note), merged.format)
+
+
+def merge_kept_track(sounds: Path, dialogue: Path, style: Style) -> str:
+    """The merged text for a sound track a person edited: their cues as they left them.
+
+    Raises:
+        SubtitleError: either file cannot be read.
+    """
+    note = (
+        f"Dialogue of {dialogue.name} with the sound captions of {sounds.name} as edited by hand\n"
+        f"merged by captioner {__version__}, style {style.name}; review before publishing"
+    )
+    return merge_text(read_track(dialogue), sound_cues_from_track(read_track(sounds)), style, note)[1]

@@ -9,20 +9,22 @@ exactly as written)::
     cue e0006 00:00:06.870 00:00:09.120 sha256:5be1f0a2c3d4e5f6
     gone e0009 00:00:12.440 00:00:18.440
 
-On a re-run each cue of the existing file falls in one of four classes:
+The file a person saved is the truth: on a re-run every cue in it stays exactly as it is
+(only a repeated identifier is renamed, as WebVTT needs them unique). Each cue falls in
+one of four classes, which decide where new machine cues may go:
 
-- unchanged: identifier (or fingerprint) of a recorded cue, fingerprint matches; the new
-  run may replace it;
-- edited: identifier of a recorded cue, fingerprint differs; kept as the person left it;
-- added: no or unknown identifier; kept;
+- unchanged: identifier (or fingerprint) of a recorded cue, fingerprint matches;
+- edited: identifier of a recorded cue, fingerprint differs;
+- added: no, unknown or repeated identifier;
 - deleted: a recorded cue missing from the file; remembered as `gone`, never brought back.
 
-New machine cues go in only where they overlap no edited, added or deleted cue (old or
-new position of an edited cue alike).
+New machine cues go in only where they overlap no cue of the file and no deleted cue (nor
+the old place of an edited one). A file whose record is lost is read as all the person's.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 import re
 from collections.abc import Sequence
@@ -37,9 +39,10 @@ from .formats import webvtt
 from .formats.subtitles import SubtitleCue, SubtitleTrack, decode_text, parse_subtitles
 
 RECORD_HEADING = "NOTE captioner record 1"
-_RECORD_LINE = re.compile(
-    r"^(cue|gone) (\S+) (\d+:\d\d:\d\d\.\d{3}) (\d+:\d\d:\d\d\.\d{3})(?: sha256:([0-9a-f]+))?$"
-)
+NOTE_OPENING = "Sound captions drafted by captioner"  # how the heading note of every track starts
+_HEADING_WORDS = RECORD_HEADING.split()
+_STAMP = re.compile(r"^(?:(\d+):)?(\d\d):(\d\d)\.(\d{3})$")
+_DIGEST = re.compile(r"^sha256:([0-9a-f]+)$")
 _FINGERPRINT_HEX = 16  # 64 bits: collisions between a person's edit and the original are negligible
 
 
@@ -67,19 +70,28 @@ class RecordEntry:
 class Summary:
     """Counts of one update, for the one-line report."""
 
+    kept_unchanged: int  # machine cues the person left alone, kept as they are
     kept_edited: int
     kept_added: int
     deleted: int
-    replaced: int
-    new_written: int
-    new_skipped: int
+    new_written: int  # machine cues added where the file had none
+    new_skipped: int  # new machine cues left out where the person had worked
+    already_there: int = 0  # new machine cues over an unchanged one: the file has that sound already
+    renamed: int = 0  # repeated identifiers given a free one
+    without_record: bool = False  # the record was lost: every cue was taken as the person's
 
     def line(self) -> str:
-        return (
-            f"kept {self.kept_edited} edited and {self.kept_added} hand-added cue(s), respected "
-            f"{self.deleted} deletion(s); "
-            f"{self.new_written} machine cue(s) written, {self.new_skipped} skipped where you had worked"
+        kept = self.kept_unchanged + self.kept_edited + self.kept_added
+        text = (
+            f"kept all {kept} cue(s) of your file ({self.kept_edited} edited, {self.kept_added} added by "
+            f"hand), respected {self.deleted} deletion(s); added {self.new_written} new machine cue(s) "
+            f"where your file had none, {self.new_skipped} left out where you had worked"
         )
+        if self.renamed:
+            text += f"; gave {self.renamed} repeated cue identifier(s) a free one"
+        if self.without_record:
+            text = f"no '{RECORD_HEADING}' block, so every cue in the file is taken as yours; " + text
+        return text
 
 
 def fingerprint(start_ms: int, end_ms: int, text: str) -> str:
@@ -105,19 +117,39 @@ def note_blocks(text: str) -> tuple[str, ...]:
 
 
 def read_record(text: str) -> tuple[RecordEntry, ...] | None:
-    """The record block of a WebVTT file's text; None when the file has none."""
-    for block in note_blocks(text):
-        lines = block.split("\n")
-        if lines[0].strip() != RECORD_HEADING:
+    """The record block of a WebVTT file's text; None when the file has none.
+
+    Read leniently, as other editors re-save files: any line breaks and spacing inside
+    the block (a heading reflowed onto two lines included), CRLF line ends, a BOM.
+    """
+    for block in note_blocks(text.lstrip("\ufeff")):
+        words = block.split()
+        if words[: len(_HEADING_WORDS)] != _HEADING_WORDS:
             continue
-        entries = []
-        for line in lines[1:]:
-            match = _RECORD_LINE.match(line.strip())
-            if match:
-                kind, identifier, start, end, digest = match.groups()
-                entries.append(RecordEntry(identifier, _ms(start), _ms(end), digest or "", kind == "gone"))
-        return tuple(entries)
+        return _entries(words[len(_HEADING_WORDS) :])
     return None
+
+
+def _entries(words: list[str]) -> tuple[RecordEntry, ...]:
+    """Record entries from the words after the heading: `cue ID START END sha256:HEX` or
+    `gone ID START END`; anything else is skipped."""
+    entries: list[RecordEntry] = []
+    position = 0
+    while position < len(words):
+        kind = words[position]
+        size = 5 if kind == "cue" else 4 if kind == "gone" else 0
+        fields = words[position : position + size]
+        if size and len(fields) == size and _STAMP.match(fields[2]) and _STAMP.match(fields[3]):
+            digest = _DIGEST.match(fields[4]) if kind == "cue" else None
+            if kind == "gone" or digest:
+                fingerprint_hex = digest.group(1) if digest else ""
+                entries.append(
+                    RecordEntry(fields[1], _ms(fields[2]), _ms(fields[3]), fingerprint_hex, kind == "gone")
+                )
+                position += size
+                continue
+        position += 1
+    return tuple(entries)
 
 
 def record_block(entries: Sequence[RecordEntry]) -> str:
@@ -143,24 +175,57 @@ def recorded_vtt(cues: Sequence[Cue], note: str) -> str:
 def classify(track: SubtitleTrack, record: Sequence[RecordEntry]) -> dict[str, Origin]:
     """Origin of each cue of `track` (keyed by position "0", "1", ...) and of each recorded
     identifier missing from the file (keyed by that identifier, always DELETED)."""
+    origins, _ = _matched(track, record)
+    return origins
+
+
+def _matched(
+    track: SubtitleTrack, record: Sequence[RecordEntry]
+) -> tuple[dict[str, Origin], dict[int, RecordEntry]]:
+    """`classify`, plus the record entry each unchanged or edited cue (by position) stands for.
+
+    Each entry stands for one cue only: a copy of a cue with its identifier is an added cue.
+    """
     live = {e.identifier: e for e in record if not e.gone}
     by_print = {e.fingerprint: e for e in live.values()}
     origins: dict[str, Origin] = {}
+    entries: dict[int, RecordEntry] = {}
     seen: set[str] = set()
     for position, cue in enumerate(track.cues):
         printed = fingerprint(cue.start_ms, cue.end_ms, cue.text)
         entry = live.get(cue.identifier)
-        if entry is None and printed in by_print and by_print[printed].identifier not in seen:
+        if entry is None and not cue.identifier and printed in by_print:
             entry = by_print[printed]  # an editor that drops identifiers: match the cue by content
-        if entry is None:
+        if entry is None or entry.identifier in seen:
             origins[str(position)] = Origin.ADDED
             continue
         seen.add(entry.identifier)
+        entries[position] = entry
         origins[str(position)] = Origin.UNCHANGED if printed == entry.fingerprint else Origin.EDITED
     for identifier in live:
         if identifier not in seen:
             origins[identifier] = Origin.DELETED
-    return origins
+    return origins, entries
+
+
+def is_untouched(text: str) -> bool:
+    """Whether a WebVTT text holds exactly what the tool wrote: every cue matches its record
+    entry's fingerprint, none was added or deleted (now or before), and no comment, STYLE or
+    REGION block was added."""
+    record = read_record(text)
+    if record is None or any(e.gone for e in record):
+        return False
+    try:
+        track = parse_subtitles(text, "vtt")
+    except SubtitleError:
+        return False
+    ours = sum(
+        block.split()[: len(_HEADING_WORDS)] == _HEADING_WORDS or block[4:].strip().startswith(NOTE_OPENING)
+        for block in note_blocks(text)
+    )
+    if ours != len(note_blocks(text)) or track.header_blocks:
+        return False
+    return all(origin is Origin.UNCHANGED for origin in classify(track, record).values())
 
 
 def update_vtt(
@@ -169,60 +234,95 @@ def update_vtt(
     """The text that replaces `existing` after a new run produced `cues`.
 
     `text` is the file's content when the caller has read it already; otherwise the file is
-    read here, once.
+    read here, once. A file without a record block is taken as all the person's work.
 
     Raises:
         SubtitleError: the existing file is not valid WebVTT.
-        OutputError: it is missing, not WebVTT, or has no record block, so edits cannot be told apart.
+        OutputError: it is missing or not WebVTT.
     """
     existing = Path(existing)
     if text is None:
         text = existing_text(existing)
     if text is None:
         raise OutputError(existing, "not found", "run without --update to write it")
-    return reconcile(
-        parse_subtitles(text, "vtt", name=str(existing)), _required_record(existing, text), cues, note
-    )
+    track = parse_subtitles(text, "vtt", name=str(existing))
+    record = read_record(text)
+    if record is None:
+        return reconcile(track, (), cues, note, without_record=True)
+    return reconcile(track, record, cues, note)
 
 
 def reconcile(
-    track: SubtitleTrack, record: Sequence[RecordEntry], cues: Sequence[Cue], note: str
+    track: SubtitleTrack,
+    record: Sequence[RecordEntry],
+    cues: Sequence[Cue],
+    note: str,
+    *,
+    without_record: bool = False,
 ) -> tuple[str, Summary]:
-    """Merge a person's file (`track` + its `record`) with a new run's machine `cues`."""
-    origins = classify(track, record)
-    recorded = {e.identifier: e for e in record}
-    kept: list[SubtitleCue] = []
-    protected: list[tuple[int, int]] = []
+    """Merge a person's file (`track` + its `record`) with a new run's machine `cues`.
+
+    Every cue of the file is kept as it is; new machine cues go in only where the file has
+    none and where no recorded cue was deleted or moved away from.
+    """
+    origins, matched = _matched(track, record)
+    worked: list[tuple[int, int]] = []  # where the person changed something
+    untouched: list[tuple[int, int]] = []  # machine cues left alone
     entries: list[RecordEntry] = [e for e in record if e.gone]
+    kept: list[SubtitleCue] = []
+    taken: set[str] = {e.identifier for e in record}
+    renamed = 0
     for position, cue in enumerate(track.cues):
         origin = origins[str(position)]
-        if origin is Origin.UNCHANGED:
-            continue
+        entry = matched.get(position)
+        if entry is not None:
+            entries.append(entry)  # the original fingerprint keeps marking an edited cue as edited
+            if origin is Origin.EDITED:
+                worked.append((entry.start_ms, entry.end_ms))
+        (untouched if origin is Origin.UNCHANGED else worked).append((cue.start_ms, cue.end_ms))
+        if cue.identifier and entry is None and cue.identifier in {c.identifier for c in kept}:
+            cue = dataclasses.replace(cue, identifier=unique_identifier(cue.identifier, taken))
+            renamed += 1
+        taken.add(cue.identifier)
         kept.append(cue)
-        protected.append((cue.start_ms, cue.end_ms))
-        entry = recorded.get(cue.identifier)
-        if origin is Origin.EDITED and entry is not None:
-            entries.append(entry)  # the original fingerprint keeps marking it as edited
-            protected.append((entry.start_ms, entry.end_ms))
     for identifier, origin in origins.items():
         if origin is Origin.DELETED:
-            entry = recorded[identifier]
+            entry = next(e for e in record if e.identifier == identifier and not e.gone)
             entries.append(RecordEntry(identifier, entry.start_ms, entry.end_ms, "", gone=True))
-    protected += [(e.start_ms, e.end_ms) for e in entries if e.gone]
+            worked.append((entry.start_ms, entry.end_ms))
+    worked += [(e.start_ms, e.end_ms) for e in record if e.gone]
 
-    fresh = [c for c in cues if not any(overlaps(c.start_ms, c.end_ms, s, e) for s, e in protected)]
-    taken = {c.identifier for c in kept} | {e.identifier for e in entries}
-    text = _document(fresh, taken, kept, track.header_blocks, entries, note)
+    def clear(cue: Cue, spans: list[tuple[int, int]]) -> bool:
+        return not any(overlaps(cue.start_ms, cue.end_ms, s, e) for s, e in spans)
+
+    fresh = [c for c in cues if clear(c, worked) and clear(c, untouched)]
+    skipped = sum(not clear(c, worked) for c in cues)
+    taken.discard("")
+    text = _document(fresh, taken, kept, track.header_blocks, _unique(entries), note)
     counts = list(origins.values())
     summary = Summary(
+        kept_unchanged=counts.count(Origin.UNCHANGED),
         kept_edited=counts.count(Origin.EDITED),
         kept_added=counts.count(Origin.ADDED),
         deleted=counts.count(Origin.DELETED) + sum(e.gone for e in record),
-        replaced=counts.count(Origin.UNCHANGED),
         new_written=len(fresh),
-        new_skipped=len(cues) - len(fresh),
+        new_skipped=skipped,
+        already_there=len(cues) - len(fresh) - skipped,
+        renamed=renamed,
+        without_record=without_record,
     )
     return text, summary
+
+
+def _unique(entries: Sequence[RecordEntry]) -> list[RecordEntry]:
+    """One record line per identifier and kind (a record read from a damaged file may repeat one)."""
+    seen: set[tuple[str, bool]] = set()
+    unique = []
+    for entry in entries:
+        if (entry.identifier, entry.gone) not in seen:
+            seen.add((entry.identifier, entry.gone))
+            unique.append(entry)
+    return unique
 
 
 def _document(
@@ -268,9 +368,11 @@ def _document(
 
 
 def _ms(stamp: str) -> int:
-    hours, minutes, rest = stamp.split(":")
-    seconds, millis = rest.split(".")
-    return ((int(hours) * 60 + int(minutes)) * 60 + int(seconds)) * 1000 + int(millis)
+    match = _STAMP.match(stamp)
+    if match is None:
+        raise ValueError(f"not a WebVTT timestamp: {stamp}")
+    hours, minutes, seconds, millis = (int(part or 0) for part in match.groups())
+    return ((hours * 60 + minutes) * 60 + seconds) * 1000 + millis
 
 
 def updatable(output: Path | None, *, merge: bool) -> bool:
@@ -279,7 +381,7 @@ def updatable(output: Path | None, *, merge: bool) -> bool:
     Checked before any work, so a run that cannot keep the edits stops at once.
 
     Raises:
-        OutputError: standard output, a merged track, an SRT file, or a file without a record.
+        OutputError: standard output, a merged track, or an SRT file.
         SubtitleError: the file cannot be read.
     """
     if output is None:
@@ -296,13 +398,13 @@ def updatable(output: Path | None, *, merge: bool) -> bool:
 
 
 def existing_text(output: Path) -> str | None:
-    """The decoded text of a track to update, checked to be WebVTT with a record block;
-    None when there is no such file yet.
+    """The decoded text of a track to update, checked to be WebVTT; None when there is no
+    such file yet.
 
     Decoded like every subtitle file the tool reads (`subtitles.decode_text`).
 
     Raises:
-        OutputError: not a .vtt file, or no record block.
+        OutputError: not a .vtt file.
         SubtitleError: the file cannot be read.
     """
     output = Path(output)
@@ -318,17 +420,4 @@ def existing_text(output: Path) -> str | None:
         raw = output.read_bytes()
     except OSError as exc:
         raise SubtitleError(output, f"cannot read ({exc.strerror})", "check its permissions") from exc
-    text = decode_text(output, raw)
-    _required_record(output, text)
-    return text
-
-
-def _required_record(path: Path, text: str) -> tuple[RecordEntry, ...]:
-    record = read_record(text)
-    if record is None:
-        raise OutputError(
-            path,
-            f"has no '{RECORD_HEADING}' block, so hand edits cannot be told from machine cues",
-            "restore that block, or pass --force to replace the file",
-        )
-    return record
+    return decode_text(output, raw)

@@ -79,10 +79,33 @@ def _worker_pack(name: str, cache: str | None) -> tuple[packs.LoadedPack, float]
         return pack, time.perf_counter() - began
 
 
-def _warm_worker(name: str, cache: str | None) -> None:
-    """Process-pool initializer: leave Ctrl-C to the driver, and load the model now."""
+_ORPHAN_CHECK_S = 0.5  # how often a pool worker looks whether the driver is still there
+
+
+def exit_with_parent(parent: int, every_s: float = _ORPHAN_CHECK_S) -> threading.Thread:
+    """Watch the parent process from a daemon thread; end this process when it is gone.
+
+    A driver killed with SIGKILL cannot stop its workers, and a worker busy with a file
+    would otherwise run on for minutes holding its model (a few hundred MB). An orphan is
+    re-parented, so its parent id changes: that works on every platform, unlike Linux's
+    parent-death signal, which also fires when merely the thread that started it ends.
+    """
+
+    def watch() -> None:
+        while os.getppid() == parent:
+            time.sleep(every_s)
+        os._exit(1)  # nothing to save: workers write no files
+
+    watchdog = threading.Thread(target=watch, name="captioner-parent-watch", daemon=True)
+    watchdog.start()
+    return watchdog
+
+
+def _warm_worker(name: str, cache: str | None, parent: int) -> None:
+    """Process-pool initializer: end with the driver, leave Ctrl-C to it, load the model now."""
     import signal
 
+    exit_with_parent(parent)
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     with suppress(CaptionerError):  # each job then reports the pack error for its own file
         _WARM_UP_S[0] = _worker_pack(name, cache)[1]
@@ -213,7 +236,7 @@ def _local_executor(workers: int, job: Job) -> tuple[Executor, int, Callable[...
         workers,
         mp_context=multiprocessing.get_context("spawn"),
         initializer=_warm_worker,
-        initargs=(job.pack, job.cache),
+        initargs=(job.pack, job.cache, os.getpid()),
     )
 
     def close(interrupted: bool) -> None:

@@ -24,7 +24,7 @@ import webvtt
 
 from captioner import library, manifest
 from captioner.cli import main
-from captioner.formats import write_atomic
+from captioner.formats import write_together
 from captioner.style import load_style
 from conftest import RATE, run_ffmpeg, tone, write_wav
 
@@ -231,15 +231,15 @@ def test_changed_file_is_redone_and_a_hand_edit_is_kept(
     assert status == 0 and (summary["done"], summary["skipped"]) == (1, 1)
     assert summary["edited"] == ["a.sounds.vtt"]
     assert (lib / "a.sounds.vtt").read_text() == edited  # the person's version is untouched
-    draft = webvtt.read(str(lib / "a.sounds.vtt.new"))  # the new draft beside it, valid WebVTT
+    draft = webvtt.read(str(lib / "a.sounds.draft.vtt"))  # the new draft beside it, valid WebVTT
     assert len(draft.captions) == rows(lib)["a.wav"]["cues"]
-    assert (lib / "a.sounds.vtt.new").read_text() != edited
-    assert json.loads(rows(lib)["a.wav"]["outputs"])["a.sounds.vtt.new"] == manifest.file_hash(
-        lib / "a.sounds.vtt.new"
+    assert (lib / "a.sounds.draft.vtt").read_text() != edited
+    assert json.loads(rows(lib)["a.wav"]["outputs"])["a.sounds.draft.vtt"] == manifest.file_hash(
+        lib / "a.sounds.draft.vtt"
     )
     assert snapshot(lib)["b.sounds.vtt"] == b_before
-    # Outputs we wrote and nobody touched are simply replaced: no .new for them.
-    assert not (lib / "a.sounds.json.new").exists()
+    # Outputs we wrote and nobody touched are simply replaced: no draft for them.
+    assert not list(lib.glob("a.sounds.draft*.json"))
 
 
 def test_outdir_mirrors_the_library(tmp_path: Path, capsys: pytest.CaptureFixture[str], pack: object) -> None:
@@ -334,7 +334,7 @@ def test_output_left_by_a_killed_run_is_ours_even_when_the_media_then_changes(
     interrupted_then_resumed(
         lib, monkeypatch, lambda m: m.setattr(manifest.RunManifest, "save", save), remember_then_change
     )
-    assert not list(lib.glob("*.new"))  # recognised as our own draft by its recorded pending hash
+    assert not list(lib.glob("*.draft*"))  # recognised as our own draft by its recorded pending hash
     assert (lib / "b.sounds.json").read_bytes() != left["b.sounds.json"][1]
     assert json.loads((lib / "b.sounds.json").read_text())["events"][0]["start_ms"] < 4000
 
@@ -343,15 +343,16 @@ def test_kill_in_the_middle_of_writing_an_output(
     three_files: tuple[Path, dict[str, tuple[int, bytes]]], monkeypatch: pytest.MonkeyPatch
 ) -> None:
     lib, reference = three_files
-    real_write = write_atomic
+    real_write = write_together
 
-    def half_write(path: Path, text: str, *, force: bool = False) -> None:
-        if path.name == "b.sounds.json":
-            (path.parent / f".{path.name}.k1ll3d.tmp").write_text(
-                text[: len(text) // 2]
-            )  # as a kill inside write_atomic leaves it
-            raise KeyboardInterrupt
-        real_write(path, text, force=force)
+    def half_write(files: list[tuple[Path, str]]) -> None:
+        for path, text in files:
+            if path.name == "b.sounds.json":
+                (path.parent / f".{path.name}.k1ll3d.tmp").write_text(
+                    text[: len(text) // 2]
+                )  # as a kill inside write_together leaves it
+                raise KeyboardInterrupt
+        real_write(files)
 
     def killed_state() -> None:
         assert not (lib / "b.sounds.json").exists() and list(
@@ -359,7 +360,7 @@ def test_kill_in_the_middle_of_writing_an_output(
         )  # never a half output
 
     interrupted_then_resumed(
-        lib, monkeypatch, lambda m: m.setattr(library, "write_atomic", half_write), killed_state
+        lib, monkeypatch, lambda m: m.setattr(library, "write_together", half_write), killed_state
     )
     assert_complete(lib, reference)
     assert not list(lib.glob(".*.tmp"))

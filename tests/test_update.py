@@ -134,20 +134,29 @@ def test_edits_additions_and_deletions_survive_a_rerun() -> None:
         "[crowd cheering]",
     ) in shown  # new cue where nobody worked
     assert "[applause]" not in once  # overlaps the hand-made cue
+    # e0001 was left alone: it stays as it is, and the new run's copy of it is not added again
     assert summary == update.Summary(
-        kept_edited=2, kept_added=1, deleted=1, replaced=1, new_written=2, new_skipped=4
+        kept_unchanged=1,
+        kept_edited=2,
+        kept_added=1,
+        deleted=1,
+        new_written=1,
+        new_skipped=4,
+        already_there=1,
     )
 
     twice, _ = _rerun(once, new_run)
     assert twice == once  # the deletion is remembered: a second run changes nothing
 
 
-def test_unchanged_machine_cues_are_replaced_by_the_new_run() -> None:
+def test_untouched_machine_cues_stay_exactly_as_they_are() -> None:
+    # The file the person saved is the truth: --update never removes or rewrites a cue.
     text = update.recorded_vtt(MACHINE, "")
     better = (_cue(1000, 2200, "[door slams shut]", "e0001"), *MACHINE[1:])
     result, summary = _rerun(text, better)
-    assert "[door slams shut]" in result and "[door slams]\n" not in result
-    assert summary.replaced == 4 and summary.new_written == 4
+    assert "[door slams shut]" not in result and "[door slams]\n" in result
+    assert [c.raw_text for c in _reference(result)] == [c.lines[0] for c in MACHINE]
+    assert summary.kept_unchanged == 4 and summary.new_written == 0 and summary.already_there == 4
 
 
 def test_a_moved_cue_protects_its_old_place_too() -> None:
@@ -194,7 +203,7 @@ def test_cues_whose_identifiers_an_editor_dropped_are_matched_by_content() -> No
     text = update.recorded_vtt(MACHINE, "")
     stripped = re.sub(r"^e000\d\n", "", text, flags=re.MULTILINE)
     result, summary = _rerun(stripped)
-    assert summary.kept_added == 0 and summary.replaced == 4
+    assert summary.kept_added == 0 and summary.kept_unchanged == 4
     assert len(_reference(result)) == 4
 
 
@@ -242,7 +251,7 @@ def test_update_keeps_hand_work_on_a_generated_track(
     assert "already exists" in capsys.readouterr().err and out.read_text() == hand_file
 
     assert main(["caption", str(DEMO), "-o", str(out), "--update"]) == 0
-    assert "kept 1 edited and 1 hand-added cue(s), respected 1 deletion(s)" in capsys.readouterr().err
+    assert "(1 edited, 1 added by hand), respected 1 deletion(s)" in capsys.readouterr().err
     after = _blocks(out)
     texts = [c.raw_text for c in after]
     assert "[chime from the hallway]" in texts and edited.raw_text not in texts[:1]
@@ -260,12 +269,6 @@ def test_update_keeps_hand_work_on_a_generated_track(
 def test_update_refuses_files_it_cannot_reconcile(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     media = tmp_path / "clip.wav"
     media.write_bytes(b"")  # never decoded: the check comes before any work
-    bare = tmp_path / "clip.vtt"
-    bare.write_text("WEBVTT\n\n00:00.000 --> 00:01.000\n[hand edit]\n")
-    assert main(["caption", str(media), "-o", str(bare), "--update"]) == 2
-    assert "no 'NOTE captioner record 1' block" in capsys.readouterr().err
-    assert bare.read_text().endswith("[hand edit]\n")
-
     srt_file = tmp_path / "clip.srt"
     srt_file.write_text("1\n00:00:00,000 --> 00:00:01,000\n[hand edit]\n")
     assert main(["caption", str(media), "-o", str(srt_file), "--update"]) == 2
@@ -280,3 +283,40 @@ def test_identifiers_are_unique_even_when_two_cues_share_an_event() -> None:
     split = (_cue(1000, 1200, "[doorbell ringing]", "e0001"), _cue(1200, 2000, "[doorbell ringing]", "e0001"))
     identifiers = [c.identifier for c in _reference(update.recorded_vtt(split, ""))]
     assert identifiers == ["e0001", "e0001-2"]
+
+
+def test_the_record_is_read_however_another_editor_reflowed_it() -> None:
+    text = update.recorded_vtt(MACHINE, "note")
+    entries = update.read_record(text)
+    assert entries is not None and len(entries) == 4
+    reflowed = text.replace("NOTE captioner record 1\n", "NOTE captioner\n  record 1 \n")
+    reflowed = re.sub(r"^(cue \S+) (\S+) ", r"\1\n\2\n", reflowed, flags=re.MULTILINE)
+    for variant in (reflowed, reflowed.replace("\n", "\r\n"), "\ufeff" + reflowed.replace("\n", "\r\n")):
+        assert update.read_record(variant) == entries
+    assert update.read_record(text.replace("NOTE captioner record 1", "NOTE captioner notes")) is None
+
+
+def test_a_block_copied_with_its_identifier_is_kept_under_a_free_one() -> None:
+    text = update.recorded_vtt(MACHINE, "")
+    copy = "e0002\n00:00:20.000 --> 00:00:21.000\n[dog barking]\n"
+    result, summary = _rerun(text + "\n" + copy)
+    captions = _reference(result)
+    identifiers = [c.identifier for c in captions]
+    # W3C WebVTT: cue identifiers are unique within a file (from memory of §4.1)
+    assert len(identifiers) == len(set(identifiers)) == 5
+    assert ("00:00:20.000", "[dog barking]") in [(c.start, c.text) for c in captions]
+    record = [line for line in result.splitlines() if line.startswith("cue ")]
+    assert len(record) == len(set(record)) == 4  # the copy is the person's: no record line of its own
+    assert summary.renamed == 1 and summary.kept_added == 1
+
+
+def test_only_a_file_exactly_as_written_counts_as_untouched() -> None:
+    text = update.recorded_vtt(MACHINE, f"{update.NOTE_OPENING} 0.1.0 from a.mp4")
+    assert update.is_untouched(text) and update.is_untouched(text.replace("\n", "\r\n"))
+    assert not update.is_untouched(_edit(text, "[dog barking]", "[dog yapping]"))
+    assert not update.is_untouched(
+        _edit(text, "e0003\n00:00:05.000 --> 00:00:06.000\n[glass breaking]\n\n", "")
+    )
+    assert not update.is_untouched(text + "\n00:00:30.000 --> 00:00:31.000\n[added]\n")
+    assert not update.is_untouched(_edit(text, "\n\ne0001\n", "\n\nNOTE checked by the editor\n\ne0001\n"))
+    assert not update.is_untouched("WEBVTT\n\n00:00.000 --> 00:01.000\n[no record]\n")

@@ -2,7 +2,10 @@
 
 from __future__ import annotations
 
+import contextlib
 import os
+import secrets
+import shutil
 import tempfile
 from collections.abc import Callable, Sequence
 from pathlib import Path
@@ -56,20 +59,104 @@ def write_atomic(path: Path, text: str, *, force: bool = False) -> None:
             "already exists (it may hold hand edits)",
             "pass --force to replace it, or choose another -o",
         )
+    write_together([(path, text)])
+
+
+def write_together(files: Sequence[tuple[Path, str | bytes]]) -> None:
+    """Put several files in place as one step: all or none of them land.
+
+    Every text (UTF-8; bytes as they are) goes to a hidden temporary file beside its target
+    first (a full disk fails here, before any target changes); then each is renamed over its
+    target, with a hard link
+    to the old file kept aside until all renames are done, so a failure puts every old file
+    back. Existing targets are replaced: the caller has decided they may be. Nothing is left
+    behind but the targets, unless the process is killed (then only hidden `.NAME.*.tmp`
+    files, which the next write of that name clears first).
+
+    Raises:
+        OutputError: a folder is missing or not writable, or a write or rename failed.
+    """
+    temporaries: list[tuple[Path, Path]] = []
+    asides: list[tuple[Path, Path | None]] = []  # (target, its old content aside, or None if new)
+    for path, _ in files:
+        clear_strays(Path(path))
+    try:
+        for path, text in files:
+            temporaries.append((Path(path), _temporary(Path(path), text)))
+        for path, temporary in temporaries:
+            asides.append((path, _set_aside(path)))
+            os.replace(temporary, path)
+    except OSError as exc:
+        _roll_back(asides)
+        failed = asides[-1][0] if asides else (temporaries[-1][0] if temporaries else Path("."))
+        raise OutputError(
+            failed, f"cannot write ({exc.strerror})", "check free space and permissions"
+        ) from exc
+    except BaseException:
+        _roll_back(asides)
+        raise
+    finally:
+        for _, temporary in temporaries:
+            temporary.unlink(missing_ok=True)
+        for _, aside in asides:
+            if aside is not None:
+                aside.unlink(missing_ok=True)
+
+
+def clear_strays(path: Path) -> None:
+    """Remove the hidden temporaries a killed run may have left beside `path`."""
+    escaped = "".join(f"[{c}]" if c in "*?[" else c for c in Path(path).name)
+    for stray in Path(path).parent.glob(f".{escaped}.*.tmp"):
+        stray.unlink(missing_ok=True)
+
+
+def _folder(path: Path) -> Path:
     folder = path.parent if str(path.parent) else Path(".")
     if not folder.is_dir():
         raise OutputError(path, f"folder {folder} does not exist", "create it or choose another path")
+    return folder
+
+
+def _temporary(path: Path, text: str | bytes) -> Path:
+    folder = _folder(path)
     try:
-        handle, temporary = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=folder)
+        handle, name = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=folder)
     except OSError as exc:
         raise OutputError(
             path, f"cannot write in {folder} ({exc.strerror})", "choose a writable folder"
         ) from exc
+    temporary = Path(name)
     try:
-        with os.fdopen(handle, "w", encoding="utf-8", newline="\n") as stream:
-            stream.write(text)
+        with os.fdopen(handle, "wb") as stream:
+            stream.write(text.encode("utf-8") if isinstance(text, str) else text)
         os.chmod(temporary, 0o666 & ~_UMASK)  # mkstemp makes it private; use the usual mode
-        os.replace(temporary, path)
-    except OSError as exc:
-        Path(temporary).unlink(missing_ok=True)
-        raise OutputError(path, f"cannot write ({exc.strerror})", "check free space and permissions") from exc
+    except BaseException as exc:
+        temporary.unlink(missing_ok=True)
+        if isinstance(exc, OSError):
+            raise OutputError(
+                path, f"cannot write ({exc.strerror})", "check free space and permissions"
+            ) from exc
+        raise
+    return temporary
+
+
+def _set_aside(path: Path) -> Path | None:
+    """A second name for the file at `path` (a hard link; a copy where links are not
+    supported), so it can be put back; None when there is no file yet."""
+    if not path.exists():
+        return None
+    aside = _folder(path) / f".{path.name}.{os.getpid()}-{secrets.token_hex(4)}.old.tmp"
+    try:
+        os.link(path, aside)
+    except OSError:
+        shutil.copy2(path, aside)
+    return aside
+
+
+def _roll_back(asides: Sequence[tuple[Path, Path | None]]) -> None:
+    for path, aside in reversed(asides):
+        with contextlib.suppress(OSError):
+            if aside is None:
+                path.unlink(missing_ok=True)
+            else:
+                os.replace(aside, path)
