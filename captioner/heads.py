@@ -9,8 +9,9 @@ holds for each concept a linear layer and a calibration of its raw output:
 
 so a score means the same thing for every concept: 0 = as common as the commonest 3 % of
 negative patches, 0.43 = one negative patch in a thousand scores this high, 0.71 = one in ten
-thousand. Like a classifier's probabilities, most patches that hold none of the sound score 0. Heads may also name new concepts with their own
-wording (a user's own sounds); built-in heads refine concepts of the vocabulary.
+thousand. Like a classifier's probabilities, most patches that hold none of the sound score 0.
+Heads may also name new concepts with their own wording (a user's own sounds); built-in heads
+refine concepts of the vocabulary.
 """
 
 from __future__ import annotations

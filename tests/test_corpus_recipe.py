@@ -53,7 +53,10 @@ def test_rules_are_checked_in_order_and_ignore_case() -> None:
 
 def test_licence_comes_from_the_last_matching_stanza() -> None:
     # Debian machine-readable copyright format 1.0: the last matching Files stanza applies.
-    text = "Format: x\n\nFiles: *\nLicense: GPL-3+\n\nFiles: src/core/resource/sounds/win.wav\nLicense: CC-BY-3.0\n"
+    text = (
+        "Format: x\n\nFiles: *\nLicense: GPL-3+\n\n"
+        "Files: src/core/resource/sounds/win.wav\nLicense: CC-BY-3.0\n"
+    )
     stanzas = copyright_stanzas(text)
     assert (
         licence_of("usr/share/g/rcc/core.rcc/g/src/core/resource/sounds/win.wav", stanzas, "?") == "CC-BY-3.0"

@@ -106,7 +106,8 @@ def run_leakage_check(
             reference += future.result()
             if n % CHUNKS_PER_PACKAGE == 0:
                 progress(
-                    f"reference [{n // CHUNKS_PER_PACKAGE}/{len(debs)}] {name}: {len(reference)} sound files so far"
+                    f"reference [{n // CHUNKS_PER_PACKAGE}/{len(debs)}] {name}: "
+                    f"{len(reference)} sound files so far"
                 )
         for path in dev:
             reference.append(dev_reference(path))

@@ -22,6 +22,7 @@ import re
 import sys
 import time
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import yaml
@@ -88,7 +89,8 @@ def background(kind: str, n: int, speech: list[np.ndarray], rng: np.random.Gener
         from scipy.signal import lfilter
 
         colour = rng.uniform(0.0, 0.98)  # one-pole low-pass from white towards brown: room tone beds
-        return lfilter([1 - colour], [1, -colour], rng.normal(size=n)).astype(np.float32)
+        bed: np.ndarray = lfilter([1 - colour], [1, -colour], rng.normal(size=n)).astype(np.float32)
+        return bed
     return (rng.normal(size=n) * 1e-4).astype(np.float32)
 
 
@@ -115,11 +117,12 @@ def versions(
 def positives(alone: np.ndarray, n_patches: int) -> np.ndarray:
     """Patches where the clip itself is loud: within QUIET_DB of its loudest patch."""
     levels = patch_levels(alone, n_patches)
-    return (levels >= levels.max() - QUIET_DB) & (levels > -70)
+    loud: np.ndarray = (levels >= levels.max() - QUIET_DB) & (levels > -70)
+    return loud
 
 
 def concept_relations(
-    config: dict, vocabulary_parents: dict[str, str | None]
+    config: dict[str, Any], vocabulary_parents: dict[str, str | None]
 ) -> dict[str, tuple[set[str], set[str]]]:
     """Head -> (corpus concepts that are its positives, corpus concepts it ignores)."""
 
@@ -284,7 +287,7 @@ def main() -> int:
     print(report_table(reports))
     # A head ships only where it separates its concept better than the classifier's own
     # classes do on the same held-out patches; elsewhere the classes stay.
-    keep = []
+    shipped: list[int] = []
     for j, report in enumerate(reports):
         used = labels[:, j] >= 0
         columns = [e.index for e in pack.vocabulary.concepts()[report.concept] if e.index >= 0]
@@ -299,8 +302,8 @@ def main() -> int:
             f"  -> {'head' if wins else 'classes'}"
         )
         if wins:
-            keep.append(j)
-    headset = subset(headset, keep, {reports[j].concept: reports[j].average_precision for j in keep})
+            shipped.append(j)
+    headset = subset(headset, shipped, {reports[j].concept: reports[j].average_precision for j in shipped})
     target = ROOT / "captioner" / "data" / "yamnet_heads.npz"
     save_heads(target, headset)
     pool = features[np.char.startswith(concept_arr, "_negative:")]
