@@ -41,6 +41,7 @@ HOP_MS, PATCH_MS = 480, 960
 CONTEXT_S = 1.0  # background before and after each clip
 MAX_PATCHES = 16  # per clip version, so long recordings do not outweigh short ones
 MAX_CLIP_S = 12.0  # longer recordings are cut (a random stretch)
+NOT_OPEN = ("CC-sampling",)  # licence names that are not open enough to train on
 
 
 def read_rows(path: Path) -> list[dict[str, str]]:
@@ -262,6 +263,14 @@ def main() -> int:
         )
         print(f"embedded {len(items)} clips into {len(features)} patches in {time.time() - started:.0f} s")
 
+    # Only openly licensed recordings: a licence that restricts how the sound may be used
+    # (Creative Commons Sampling Plus forbids advertising uses) keeps its clip out.
+    restricted = [n for n, r in enumerate(clips + negatives) if any(m in r["licence"] for m in NOT_OPEN)]
+    if restricted:
+        print(f"left out {len(restricted)} clip(s) under a licence that restricts use: {NOT_OPEN}")
+        allowed = ~np.isin(groups, restricted)
+        features, class_scores, groups = features[allowed], class_scores[allowed], groups[allowed]
+        concept_of = [c for c, a in zip(concept_of, allowed, strict=True) if a]
     labels = np.full((len(features), len(heads)), NEGATIVE, np.int8)
     concept_arr = np.array(concept_of)
     for j, head in enumerate(heads):

@@ -32,7 +32,7 @@ from captioner.features import PatchStream
 from captioner.scores import compute_scores
 from captioner.style import load_style
 
-STAGES = ("decode", "features", "classify", "end_to_end")
+STAGES = ("decode", "features", "classify", "end_to_end_no_heads", "end_to_end")
 
 
 def make_input(path: Path, minutes: int) -> Path:
