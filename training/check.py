@@ -59,6 +59,13 @@ def dev_reference(path: Path) -> tuple[str, str, str, Fingerprint | None]:
     )
 
 
+def matched_label(name: str, digests: dict[str, str]) -> str:
+    """What a dropped clip matched, by the SHA-256 of that sound file alone: the lists name no
+    file of the excluded packages, so they never read as a source of training clips."""
+    kind = "development clip" if name.startswith("dev:") else "evaluation source"
+    return f"{kind} sha256:{digests[name]}"
+
+
 def clip_print(wav: str, cache: str) -> Fingerprint:
     target = Path(cache)
     if target.exists():
@@ -143,6 +150,7 @@ def run_leakage_check(
                     acoustic[cid] = verdict
                 if n % 250 == 0:
                     progress(f"compared {n}/{len(rows)} clips by fingerprint, {len(acoustic)} matched")
+    digests = {name: sha for name, sha, _, _ in reference}
     kept, dropped = [], []
     for n, row in enumerate(rows, 1):
         match = checksum_matches(row["sha256"], row["audio_sha256"], file_index, audio_index)
@@ -150,7 +158,14 @@ def run_leakage_check(
         if verdict is None:
             kept.append(row)
         else:
-            dropped.append({**row, "matched": verdict[0], "method": verdict[1], "detail": verdict[2]})
+            dropped.append(
+                {
+                    **row,
+                    "matched": matched_label(verdict[0], digests),
+                    "method": verdict[1],
+                    "detail": verdict[2],
+                }
+            )
             wav = work / "clips" / row["file"]
             if wav.exists():  # moved out, so that a folder listing of clips/ holds no leaked clip
                 (work / "dropped" / row["file"]).parent.mkdir(parents=True, exist_ok=True)
