@@ -23,6 +23,7 @@ from .fitting import IGNORED, NEGATIVE, POSITIVE, TrainingSet
 from .heads import NewConcept
 from .packs import LoadedPack
 from .scores import compute_scores
+from .separability import patch_labels
 
 NEGATIVE_FOLDER = "_other"
 NEGATIVE_POOL = Path(__file__).parent / "data" / "yamnet_negatives.npz"
@@ -177,16 +178,24 @@ def embed(samples: np.ndarray, pack: LoadedPack, *, hop_ms: int, level_spread_db
             keep_embeddings=True,
         )
     assert track.embeddings is not None
-    frames_per_patch = round(track.patch_ms / track.frame_ms)
-    hop_frames = round(track.hop_ms / track.frame_ms)
-    levels = np.array(
+    levels = patch_peaks(
+        track.energy_db,
+        track.n_patches,
+        round(track.hop_ms / track.frame_ms),
+        round(track.patch_ms / track.frame_ms),
+    )
+    return Embedded(track.embeddings, track.scores, levels, track.hop_ms, track.patch_ms)
+
+
+def patch_peaks(frame_db: np.ndarray, n_patches: int, hop_frames: int, patch_frames: int) -> np.ndarray:
+    """Loudest frame level (dBFS) inside each patch; -120 where a patch has no frames."""
+    return np.array(
         [
-            track.energy_db[i * hop_frames : i * hop_frames + frames_per_patch].max(initial=-120.0)
-            for i in range(track.n_patches)
+            frame_db[i * hop_frames : i * hop_frames + patch_frames].max(initial=-120.0)
+            for i in range(n_patches)
         ],
         np.float32,
     )
-    return Embedded(track.embeddings, track.scores, levels, track.hop_ms, track.patch_ms)
 
 
 def loud_patches(levels: np.ndarray, *, floor_db: float = -60.0) -> np.ndarray:
@@ -200,15 +209,13 @@ def loud_patches(levels: np.ndarray, *, floor_db: float = -60.0) -> np.ndarray:
 def span_mask(
     n: int, hop_ms: int, patch_ms: int, spans_ms: Sequence[tuple[int, int]]
 ) -> tuple[np.ndarray, np.ndarray]:
-    """(inside, near): patches covering half of themselves or of a span; patches touching one at all."""
+    """(inside, near): patches labelled by the spans as `evaluate --scores` labels them; patches
+    touching one at all."""
     starts = np.arange(n, dtype=np.int64) * hop_ms
-    inside = np.zeros(n, bool)
     near = np.zeros(n, bool)
     for start, end in spans_ms:
-        overlap = np.minimum(starts + patch_ms, end) - np.maximum(starts, start)
-        inside |= (overlap > 0) & (2 * overlap >= min(patch_ms, end - start))
-        near |= overlap > -hop_ms
-    return inside, near
+        near |= np.minimum(starts + patch_ms, end) - np.maximum(starts, start) > -hop_ms
+    return patch_labels(spans_ms, n, hop_ms, patch_ms), near
 
 
 def build_training_set(

@@ -34,7 +34,7 @@ from captioner import packs  # noqa: E402
 from captioner.fitting import IGNORED, NEGATIVE, POSITIVE, TrainingSet, report_table, train_heads  # noqa: E402
 from captioner.heads import HeadSet, save_heads  # noqa: E402
 from captioner.separability import average_precision  # noqa: E402
-from captioner.teach import NEGATIVE_POOL, QUIET_DB, embed, save_negative_pool  # noqa: E402
+from captioner.teach import NEGATIVE_POOL, embed, loud_patches, patch_peaks, save_negative_pool  # noqa: E402
 
 RATE = 16000
 HOP_MS, PATCH_MS = 480, 960
@@ -67,12 +67,7 @@ def patch_levels(signal: np.ndarray, n_patches: int) -> np.ndarray:
     """Loudest 10 ms frame (dBFS) inside each patch of a signal."""
     frames = signal[: len(signal) // 160 * 160].reshape(-1, 160)
     frame_db = 10 * np.log10(np.mean(frames.astype(np.float64) ** 2, axis=1) + 1e-12)
-    out = np.full(n_patches, -120.0)
-    for i in range(n_patches):
-        window = frame_db[i * 48 : i * 48 + 96]
-        if window.size:
-            out[i] = window.max()
-    return out
+    return patch_peaks(frame_db, n_patches, HOP_MS // 10, PATCH_MS // 10)
 
 
 def background(kind: str, n: int, speech: list[np.ndarray], rng: np.random.Generator) -> np.ndarray:
@@ -116,10 +111,8 @@ def versions(
 
 
 def positives(alone: np.ndarray, n_patches: int) -> np.ndarray:
-    """Patches where the clip itself is loud: within QUIET_DB of its loudest patch."""
-    levels = patch_levels(alone, n_patches)
-    loud: np.ndarray = (levels >= levels.max() - QUIET_DB) & (levels > -70)
-    return loud
+    """Patches where the clip itself is loud (within teach.QUIET_DB of its loudest patch)."""
+    return loud_patches(patch_levels(alone, n_patches), floor_db=-70.0)
 
 
 def concept_relations(
