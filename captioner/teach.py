@@ -194,7 +194,7 @@ def patch_peaks(frame_db: np.ndarray, n_patches: int, hop_frames: int, patch_fra
             frame_db[i * hop_frames : i * hop_frames + patch_frames].max(initial=-120.0)
             for i in range(n_patches)
         ],
-        np.float32,
+        frame_db.dtype,  # float32 from a score track, float64 from the recipe's own levels
     )
 
 
