@@ -378,8 +378,8 @@ def _models(args: argparse.Namespace) -> int:
 def _teach(args: argparse.Namespace) -> int:
     from . import packs
     from .fitting import report_table, train_heads
-    from .formats import write_atomic
-    from .heads import save_heads
+    from .formats import write_together
+    from .heads import heads_bytes
     from .style import load_style
     from .teach import TeachError, build_training_set, check_clips, read_folder, read_label_csv
 
@@ -412,17 +412,15 @@ def _teach(args: argparse.Namespace) -> int:
         data, folds=args.folds, info={"source": source.name, "clips": len(clips)}, say=say
     )
     print(report_table(reports))
-    temporary = head_path.with_name(f".{head_path.name}.tmp")
-    save_heads(temporary, heads)
-    digest = packs.sha256_of(temporary.read_bytes())
-    os.replace(temporary, head_path)
+    head_file = heads_bytes(heads)
+    digest = packs.sha256_of(head_file)
     base = pack.manifest.name if args.model is None or args.model in packs.builtin_packs() else args.model
     manifest = (
         f"# Written by captioner teach: the {base} pack plus heads for {', '.join(concepts)}.\n"
         f"name: {manifest_path.name.removesuffix('.pack.yaml')}\nextends: {base}\n"
         f"heads:\n  - file: {head_path.name}\n    sha256: {digest}\n"
     )
-    write_atomic(manifest_path, manifest, force=True)
+    write_together([(head_path, head_file), (manifest_path, manifest)])  # both land, or neither
     say(f"wrote {head_path} and {manifest_path}; use it with --model {manifest_path}")
     return EXIT_OK
 

@@ -17,6 +17,7 @@ refine concepts of the vocabulary.
 from __future__ import annotations
 
 import hashlib
+import io
 import json
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field, replace
@@ -115,6 +116,11 @@ def knot_scores() -> np.ndarray:
 
 def save_heads(path: Path, heads: HeadSet) -> None:
     """Write a head file (.npz, arrays plus one JSON text; no pickled objects)."""
+    Path(path).write_bytes(heads_bytes(heads))
+
+
+def heads_bytes(heads: HeadSet) -> bytes:
+    """The contents of a head file."""
     meta = {
         "format": FORMAT,
         "concepts": list(heads.concepts),
@@ -130,15 +136,16 @@ def save_heads(path: Path, heads: HeadSet) -> None:
         },
         "info": dict(heads.info),
     }
-    with Path(path).open("wb") as handle:
-        np.savez_compressed(
-            handle,
-            weights=heads.weights.astype(np.float32),
-            bias=heads.bias.astype(np.float32),
-            knots=heads.knots.astype(np.float32),
-            knot_scores=heads.knot_scores.astype(np.float32),
-            meta=np.array(json.dumps(meta, sort_keys=True)),
-        )
+    handle = io.BytesIO()
+    np.savez_compressed(
+        handle,
+        weights=heads.weights.astype(np.float32),
+        bias=heads.bias.astype(np.float32),
+        knots=heads.knots.astype(np.float32),
+        knot_scores=heads.knot_scores.astype(np.float32),
+        meta=np.array(json.dumps(meta, sort_keys=True)),
+    )
+    return handle.getvalue()
 
 
 def load_heads(path: Path, *, expected_sha256: str | None = None) -> HeadSet:
