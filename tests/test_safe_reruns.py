@@ -399,12 +399,29 @@ def _descendants(pid: int) -> list[object]:
     return list(psutil.Process(pid).children(recursive=True))
 
 
-def _seconds_until_gone(processes: list[object], limit_s: float) -> float:
+def _name_or_empty(process: object) -> str:
+    """A process's name, or "" when it ended between being listed and being asked."""
     import psutil
 
+    try:
+        return str(process.name())  # type: ignore[attr-defined]
+    except psutil.NoSuchProcess:
+        return ""
+
+
+def _is_alive(process: object) -> bool:
+    import psutil
+
+    try:
+        return bool(process.is_running() and process.status() != psutil.STATUS_ZOMBIE)  # type: ignore[attr-defined]
+    except psutil.NoSuchProcess:
+        return False
+
+
+def _seconds_until_gone(processes: list[object], limit_s: float) -> float:
     began = time.monotonic()
     while time.monotonic() - began < limit_s:
-        alive = [p for p in processes if p.is_running() and p.status() != psutil.STATUS_ZOMBIE]  # type: ignore[attr-defined]
+        alive = [p for p in processes if _is_alive(p)]
         if not alive:
             return time.monotonic() - began
         time.sleep(0.05)
@@ -434,7 +451,7 @@ def _kill_when_busy(command: list[str]) -> tuple[list[object], float]:
     process = subprocess.Popen(command, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
     deadline = time.monotonic() + 120
     while time.monotonic() < deadline and process.poll() is None:
-        if sum("ffmpeg" in p.name() for p in _descendants(process.pid)) >= 2:  # type: ignore[attr-defined]
+        if sum("ffmpeg" in _name_or_empty(p) for p in _descendants(process.pid)) >= 2:
             break
         time.sleep(0.05)
     workers = _descendants(process.pid)
