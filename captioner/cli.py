@@ -39,6 +39,11 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("captioner: interrupted; no partial output was written", file=sys.stderr)
         return 130
+    except BrokenPipeError:
+        # The reader of our standard output went away (`captioner check X | head`): not an
+        # error of ours. Point stdout at /dev/null so the interpreter's final flush is silent.
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return EXIT_OK
 
 
 @contextmanager

@@ -204,3 +204,18 @@ def test_events_json_without_a_path_goes_beside_the_input(tmp_path: Path, pack: 
     audio = write_wav(tmp_path / "a.wav", np.concatenate([np.zeros(32000), tone(2.0), np.zeros(32000)]))
     assert main(["caption", str(audio), "--events-json", "--quiet"]) == 0
     assert (tmp_path / "a.sounds.vtt").is_file() and '"events"' in (tmp_path / "a.sounds.json").read_text()
+
+
+def test_a_reader_that_stops_early_is_no_error() -> None:
+    # `captioner styles brackets | head -1`: the pipe's reader is gone before we write. Unix
+    # convention (common practice): a program whose output pipe closes stops quietly.
+    process = subprocess.Popen(
+        [sys.executable, "-m", "captioner", "styles", "brackets"],
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+    )
+    assert process.stdout is not None and process.stderr is not None
+    process.stdout.close()  # before the interpreter has even imported captioner
+    stderr = process.stderr.read().decode()
+    assert process.wait(timeout=60) == 0
+    assert "Traceback" not in stderr and "BrokenPipe" not in stderr
