@@ -276,6 +276,76 @@ def car_horn(rng: np.random.Generator) -> tuple[np.ndarray, str]:
     return np.tanh(out * 0.5) * _gate(t, spans, 0.01), f"{f1:.0f}+{f2:.0f} Hz, {honks} honk"
 
 
+# The Westminster quarters: the four phrases of the chime on the notes G#4 F#4 E4 B3
+# (semitones above B3: 9, 7, 5, 0), as door chimes play them (from memory).
+WESTMINSTER_PHRASES = ((9, 7, 5, 0), (5, 9, 7, 0), (5, 7, 9, 5), (9, 5, 7, 0), (0, 7, 9, 5))
+
+
+def doorbell_westminster(rng: np.random.Generator) -> tuple[np.ndarray, str]:
+    # Melodic door chime: one or two Westminster phrases of struck-bar notes (convention).
+    phrases = [
+        WESTMINSTER_PHRASES[int(rng.integers(len(WESTMINSTER_PHRASES)))]
+        for _ in range(int(rng.integers(1, 3)))
+    ]
+    step = rng.uniform(0.45, 0.7)
+    root = rng.uniform(220, 330)
+    decay = rng.uniform(0.8, 1.8)
+    notes = [n for phrase in phrases for n in phrase]
+    total = 0.2 + step * len(notes) + rng.uniform(1.0, 2.0)
+    t = _t(total)
+    out = np.zeros_like(t)
+    for k, semitones in enumerate(notes):
+        start = int((0.1 + k * step + (step if k >= 4 else 0.0)) * RATE)
+        if start < len(t):
+            out[start:] += _bell_note(t[: len(t) - start], root * 2 ** (semitones / 12), decay, rng)
+    return out, f"Westminster chime, {len(phrases)} phrase(s) on B3 = {root:.0f} Hz, {step:.2f} s per note"
+
+
+def doorbell_buzzer(rng: np.random.Generator) -> tuple[np.ndarray, str]:
+    # Electric door buzzer: an interrupter driven from the mains hums at twice the mains
+    # frequency (100 or 120 Hz), harsh with harmonics and rattle; one to three presses (common practice).
+    mains = float(rng.choice([50.0, 60.0]))
+    f0 = 2 * mains * rng.uniform(0.97, 1.03)
+    presses = int(rng.integers(1, 4))
+    spans, at = [], rng.uniform(0.05, 0.3)
+    for _ in range(presses):
+        length = rng.uniform(0.3, 1.8)
+        spans.append((at, at + length))
+        at += length + rng.uniform(0.2, 0.8)
+    total = at + rng.uniform(0.2, 0.6)
+    t = _t(total)
+    phase = (t * f0) % 1.0
+    buzz = np.where(phase < rng.uniform(0.2, 0.5), 1.0, -0.4) + rng.standard_normal(len(t)) * 0.15
+    return np.tanh(2 * buzz) * _gate(t, spans, 0.005), f"buzzer {f0:.0f} Hz, {presses} press(es)"
+
+
+def telephone_bell(rng: np.random.Generator) -> tuple[np.ndarray, str]:
+    # Electromechanical ringer: the ringing current (20 Hz in North America, 25 Hz in much of
+    # Europe) swings a clapper between two bell gongs, so each gong is struck 20-25 times a
+    # second; North American or UK cadence (values from memory).
+    uk = rng.random() < 0.5
+    strike_hz = 25.0 if uk else 20.0
+    total = rng.uniform(4, 8)
+    t = _t(total)
+    gongs = (rng.uniform(900, 1300), rng.uniform(1300, 1800))
+    out = np.zeros_like(t)
+    length = int(0.06 * RATE)
+    tail = t[:length]
+    pattern = [0.4, 0.2, 0.4, 2.0] if uk else [2.0, 4.0]
+    for on, off in _cadence(pattern, total, rng.uniform(0.05, 0.5)):
+        at, k = on, 0
+        while at < off:
+            f = gongs[k % 2]
+            hit = sum(g * np.sin(2 * np.pi * f * r * tail) for r, g in ((1.0, 1.0), (2.7, 0.4), (5.2, 0.15)))
+            hit = hit * np.exp(-tail / 0.03)
+            start = int(at * RATE)
+            end = min(len(t), start + length)
+            out[start:end] += hit[: end - start]
+            at += 1.0 / (2 * strike_hz)
+            k += 1
+    return out, f"bell ringer {gongs[0]:.0f}/{gongs[1]:.0f} Hz, {'UK' if uk else 'NA'} cadence"
+
+
 GENERATORS: dict[str, tuple[str, Generator]] = {
     "telephone_na": ("telephone", telephone_na),
     "telephone_uk": ("telephone", telephone_uk),
@@ -287,6 +357,9 @@ GENERATORS: dict[str, tuple[str, Generator]] = {
     "clock": ("clock", clock),
     "alarm_clock": ("alarm_clock", alarm_clock),
     "car_horn": ("car_horn", car_horn),
+    "doorbell_westminster": ("doorbell", doorbell_westminster),
+    "doorbell_buzzer": ("doorbell", doorbell_buzzer),
+    "telephone_bell": ("telephone", telephone_bell),
 }
 
 

@@ -115,6 +115,50 @@ def positives(alone: np.ndarray, n_patches: int) -> np.ndarray:
     return loud_patches(patch_levels(alone, n_patches), floor_db=-70.0)
 
 
+def clip_patches(
+    row: dict[str, str],
+    concept: str,
+    path: Path,
+    cache: Path,
+    speech: list[np.ndarray],
+    seed: int,
+    pack: packs.LoadedPack,
+) -> tuple[np.ndarray, np.ndarray, int] | None:
+    """(embeddings, class scores, 1 if embedded now else 0) of one clip's chosen patches.
+
+    Each clip has its own random stream (seed and clip id) and its own cache file (named by
+    its decoded audio's checksum), so adding clips to the corpus embeds only the new ones and
+    every clip's patches stay what they were."""
+    stored = cache / f"{row['clip_id']}-{row['audio_sha256'][:16]}-{seed}.npz"
+    if stored.is_file():
+        data = np.load(stored, allow_pickle=False)
+        return data["features"], data["class_scores"], 0
+    try:
+        audio = read_wav(path)
+    except (OSError, ValueError, EOFError) as exc:
+        print(f"  skipped {path.name}: {exc}")
+        return None
+    if audio.size < RATE // 10 or np.abs(audio).max() < 1e-4:
+        return None
+    rng = np.random.default_rng([seed, int(row["audio_sha256"][:15], 16)])
+    features, scores = [], []
+    for mixed, alone in versions(audio, speech, rng):
+        done = embed(mixed, pack, hop_ms=HOP_MS, level_spread_db=6.0)
+        count = len(done.embeddings)
+        keep = positives(alone, count) if not concept.startswith("_") else np.ones(count, bool)
+        chosen = np.flatnonzero(keep)
+        if chosen.size > MAX_PATCHES:
+            chosen = np.sort(rng.choice(chosen, MAX_PATCHES, replace=False))
+        features.append(done.embeddings[chosen].astype(np.float32))
+        scores.append(done.class_scores[chosen].astype(np.float32))
+    cache.mkdir(parents=True, exist_ok=True)
+    result = np.concatenate(features), np.concatenate(scores)
+    partial = stored.with_suffix(".part.npz")
+    np.savez(partial, features=result[0], class_scores=result[1])
+    partial.replace(stored)
+    return result[0], result[1], 1
+
+
 def concept_relations(
     config: dict[str, Any], vocabulary_parents: dict[str, str | None]
 ) -> dict[str, tuple[set[str], set[str]]]:
@@ -164,7 +208,7 @@ def main() -> int:
     parser.add_argument("--work", type=Path, required=True, help="the corpus folder of build_corpus.py")
     parser.add_argument("--seed", type=int, default=20261202)
     parser.add_argument(
-        "--cache", type=Path, default=None, help="embedding cache (default: WORK/embeddings.npz)"
+        "--cache", type=Path, default=None, help="embedding cache folder (default: WORK/embeddings)"
     )
     parser.add_argument("--l2", type=float, default=1e-3)
     parser.add_argument("--folds", type=int, default=5, help="cross-validation folds (default 5)")
@@ -209,58 +253,29 @@ def main() -> int:
         f"{len(heads)} heads"
     )
 
-    cache = args.cache or args.work / "embeddings.npz"
-    if cache.is_file():
-        stored = np.load(cache, allow_pickle=False)
-        features, concept_of, groups = stored["features"], list(stored["concept_of"]), stored["groups"]
-        class_scores = stored["class_scores"]
-    else:
-        features_list, concept_list, group_list, score_list = [], [], [], []
-        started = time.time()
-        items = [(r, r["concept"], args.work / "clips" / r["concept"] / f"{r['clip_id']}.wav") for r in clips]
-        items += [
-            (
-                r,
-                "_negative:" + r["kind"],
-                args.work / "clips" / "_negative" / r["kind"] / f"{r['clip_id']}.wav",
-            )
-            for r in negatives
-        ]
-        for number, (_row, concept, path) in enumerate(items):
-            if number % 200 == 0:
-                print(f"  embedding {number}/{len(items)} ({time.time() - started:.0f} s)", flush=True)
-            try:
-                audio = read_wav(path)
-            except (OSError, ValueError, EOFError) as exc:
-                print(f"  skipped {path.name}: {exc}")
-                continue
-            if audio.size < RATE // 10 or np.abs(audio).max() < 1e-4:
-                continue
-            for mixed, alone in versions(audio, speech, rng):
-                done = embed(mixed, pack, hop_ms=HOP_MS, level_spread_db=6.0)
-                keep = (
-                    positives(alone, len(done.embeddings))
-                    if not concept.startswith("_")
-                    else np.ones(len(done.embeddings), bool)
-                )
-                chosen = np.flatnonzero(keep)
-                if chosen.size > MAX_PATCHES:
-                    chosen = np.sort(rng.choice(chosen, MAX_PATCHES, replace=False))
-                features_list.append(done.embeddings[chosen])
-                score_list.append(done.class_scores[chosen])
-                concept_list += [concept] * chosen.size
-                group_list.append(np.full(chosen.size, number))
-        features = np.concatenate(features_list).astype(np.float32)
-        class_scores = np.concatenate(score_list).astype(np.float32)
-        concept_of, groups = concept_list, np.concatenate(group_list)
-        np.savez(
-            cache,
-            features=features,
-            class_scores=class_scores,
-            concept_of=np.array(concept_of),
-            groups=groups,
-        )
-        print(f"embedded {len(items)} clips into {len(features)} patches in {time.time() - started:.0f} s")
+    cache = args.cache or args.work / "embeddings"
+    items = [(r, r["concept"], args.work / "clips" / r["concept"] / f"{r['clip_id']}.wav") for r in clips]
+    items += [
+        (r, "_negative:" + r["kind"], args.work / "clips" / "_negative" / r["kind"] / f"{r['clip_id']}.wav")
+        for r in negatives
+    ]
+    features_list, concept_list, group_list, score_list = [], [], [], []
+    started, made = time.time(), 0
+    for number, (row, concept, path) in enumerate(items):
+        if number % 200 == 0:
+            print(f"  embedding {number}/{len(items)} ({made} new, {time.time() - started:.0f} s)", flush=True)
+        stored = clip_patches(row, concept, path, cache, speech, args.seed, pack)
+        if stored is None:
+            continue
+        made += stored[2]
+        features_list.append(stored[0])
+        score_list.append(stored[1])
+        concept_list += [concept] * len(stored[0])
+        group_list.append(np.full(len(stored[0]), number))
+    features = np.concatenate(features_list).astype(np.float32)
+    class_scores = np.concatenate(score_list).astype(np.float32)
+    concept_of, groups = concept_list, np.concatenate(group_list)
+    print(f"{len(items)} clips give {len(features)} patches ({made} clip(s) embedded now, {time.time() - started:.0f} s)")
 
     # Only openly licensed recordings: a licence that restricts how the sound may be used
     # (Creative Commons Sampling Plus forbids advertising uses) keeps its clip out.
