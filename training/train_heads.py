@@ -263,7 +263,8 @@ def main() -> int:
     started, made = time.time(), 0
     for number, (row, concept, path) in enumerate(items):
         if number % 200 == 0:
-            print(f"  embedding {number}/{len(items)} ({made} new, {time.time() - started:.0f} s)", flush=True)
+            elapsed = time.time() - started
+            print(f"  embedding {number}/{len(items)} ({made} new, {elapsed:.0f} s)", flush=True)
         stored = clip_patches(row, concept, path, cache, speech, args.seed, pack)
         if stored is None:
             continue
@@ -275,7 +276,8 @@ def main() -> int:
     features = np.concatenate(features_list).astype(np.float32)
     class_scores = np.concatenate(score_list).astype(np.float32)
     concept_of, groups = concept_list, np.concatenate(group_list)
-    print(f"{len(items)} clips give {len(features)} patches ({made} clip(s) embedded now, {time.time() - started:.0f} s)")
+    elapsed = time.time() - started
+    print(f"{len(items)} clips give {len(features)} patches ({made} clip(s) embedded now, {elapsed:.0f} s)")
 
     # Only openly licensed recordings: a licence that restricts how the sound may be used
     # (Creative Commons Sampling Plus forbids advertising uses) keeps its clip out.
