@@ -8,6 +8,7 @@ import zipfile
 import zlib
 from pathlib import Path
 
+import pytest
 import yaml
 
 from training.archives import package_sounds
@@ -111,3 +112,17 @@ def test_archive_members_are_listed_with_their_archive(tmp_path: Path) -> None:
         "usr/share/games/g/plain.ogg": b"ogg",
         "usr/share/games/g/res.rcc/sounds/b.ogg": b"ogg-b",
     }
+
+
+def test_a_missing_program_stops_the_build_with_one_line_before_any_download(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, capsys: pytest.CaptureFixture[str]
+) -> None:
+    from training import build_corpus
+
+    monkeypatch.setattr(build_corpus.shutil, "which", lambda tool: None if tool == "espeak-ng" else tool)
+    monkeypatch.setattr(build_corpus, "fetch", lambda *a, **k: pytest.fail("downloaded before the check"))
+    assert build_corpus.main(["--work", str(tmp_path)]) == 2
+    message = capsys.readouterr().err.strip()
+    assert len(message.splitlines()) == 1
+    assert "espeak-ng not found" in message and "install" in message
+    assert not any(tmp_path.iterdir())

@@ -18,6 +18,7 @@ import csv
 import hashlib
 import json
 import re
+import shutil
 import subprocess
 import sys
 from collections.abc import Iterator
@@ -238,6 +239,16 @@ def write_csv(path: Path, rows: list[dict[str, str]], columns: list[str]) -> Non
     tmp.replace(path)
 
 
+# Programs the build runs, and the Debian package that brings each one.
+TOOLS = {"apt-get": "apt", "dpkg-deb": "dpkg", "espeak-ng": "espeak-ng", "fpcalc": "libchromaprint-tools"}
+
+
+def missing_tools(*, fingerprints: bool) -> list[str]:
+    """The programs the build needs that are not installed, so it stops before downloading."""
+    needed = [t for t in TOOLS if fingerprints or t != "fpcalc"]
+    return [t for t in needed if shutil.which(t) is None]
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     parser.add_argument("--work", type=Path, required=True, help="folder for packages, clips and caches")
@@ -252,6 +263,14 @@ def main(argv: list[str] | None = None) -> int:
         "--skip-fingerprints", action="store_true", help="checksums only (a quick first pass)"
     )
     args = parser.parse_args(argv)
+    missing = missing_tools(fingerprints=not args.skip_fingerprints)
+    if missing:
+        print(
+            f"build_corpus.py: {', '.join(missing)} not found on PATH; install the Debian packages "
+            f"{' '.join(sorted(set(TOOLS[t] for t in missing)))} and run again",
+            file=sys.stderr,
+        )
+        return 2
     work = args.work.resolve()
     recipe = load_recipe()
     pinned = {p.name: p.version for p in recipe.packages}
