@@ -4,8 +4,9 @@
 
 Reads training/clips.csv and training/negatives.csv (the clip lists with licences), embeds
 every clip as a caption run would (16 kHz, 0.96 s patches every 0.48 s, level-averaged),
-in three versions: clean at a random gain, mixed under synthetic speech, and mixed with
-room noise, each with a second of that background around it. Then fits one head per concept
+three times in three versions: clean at a random gain, mixed under synthetic speech, and
+mixed with room noise, each with 0.5-1.5 s of that background before it (so a short sound
+falls at every phase of the patch grid) and the rest of two seconds after. Then fits one head per concept
 listed in training/heads.yaml (cross-validated by clip), writes
 captioner/data/yamnet_heads.npz and the built-in negative pool, pins the head file's SHA-256
 in the pack manifest, and prints per-concept counts and cross-validated AUC / AP.
@@ -39,8 +40,13 @@ from captioner.teach import NEGATIVE_POOL, embed, loud_patches, patch_peaks, sav
 RATE = 16000
 HOP_MS, PATCH_MS = 480, 960
 CONTEXT_S = 1.0  # background before and after each clip
-MAX_PATCHES = 16  # per clip version, so long recordings do not outweigh short ones
+MAX_PATCHES = 8  # per clip version, so long recordings do not outweigh short ones
+# Each clip is heard ROUNDS times clean, under speech and in noise (SNR_DB ranges): with one
+# draw each, which patches of a short sound a head learnt from was luck of the seed.
+ROUNDS = 3
+SNR_DB = {"speech": (-3.0, 15.0), "noise": (3.0, 25.0)}
 MAX_CLIP_S = 12.0  # longer recordings are cut (a random stretch)
+PATCH_RECIPE = 2  # in the cache file names: raise it when versions() changes
 NOT_OPEN = ("CC-sampling",)  # licence names that are not open enough to train on
 
 
@@ -93,16 +99,21 @@ def background(kind: str, n: int, speech: list[np.ndarray], rng: np.random.Gener
 def versions(
     clip: np.ndarray, speech: list[np.ndarray], rng: np.random.Generator
 ) -> list[tuple[np.ndarray, np.ndarray]]:
-    """(mixed signal, the clip alone placed the same way) for clean, under-speech and in-noise versions."""
+    """(mixed signal, the clip alone placed the same way): clean, under speech, in noise, ROUNDS times."""
     if clip.size > MAX_CLIP_S * RATE:
         start = int(rng.integers(0, clip.size - int(MAX_CLIP_S * RATE)))
         clip = clip[start : start + int(MAX_CLIP_S * RATE)]
     peak = np.abs(clip).max() + 1e-9
     clip = clip / peak * 10 ** (rng.uniform(-24, -3) / 20)  # random playback level
-    pad = int(CONTEXT_S * RATE)
-    placed = np.concatenate([np.zeros(pad), clip, np.zeros(pad)]).astype(np.float32)
     out = []
-    for kind, snr in (("silence", None), ("speech", rng.uniform(-3, 15)), ("noise", rng.uniform(3, 25))):
+    for kind in ("silence", "speech", "noise") * ROUNDS:
+        snr = rng.uniform(*SNR_DB[kind]) if kind in SNR_DB else None
+        # A random lead-in of 0.5-1.5 s puts the clip's start at any moment of the 0.48 s
+        # patch grid: a short sound is heard at every phase, as it will be in a video.
+        before = int(rng.uniform(0.5, 1.5) * CONTEXT_S * RATE)
+        placed = np.concatenate(
+            [np.zeros(before), clip, np.zeros(int(2 * CONTEXT_S * RATE) - before)]
+        ).astype(np.float32)
         bed = background(kind, placed.size, speech, rng)
         if snr is not None:
             bed = bed / (np.sqrt(np.mean(bed**2)) + 1e-9) * 10 ** ((rms_db(clip) - snr) / 20)
@@ -129,7 +140,7 @@ def clip_patches(
     Each clip has its own random stream (seed and clip id) and its own cache file (named by
     its decoded audio's checksum), so adding clips to the corpus embeds only the new ones and
     every clip's patches stay what they were."""
-    stored = cache / f"{row['clip_id']}-{row['audio_sha256'][:16]}-{seed}.npz"
+    stored = cache / f"{row['clip_id']}-{row['audio_sha256'][:16]}-{seed}-r{PATCH_RECIPE}.npz"
     if stored.is_file():
         data = np.load(stored, allow_pickle=False)
         return data["features"], data["class_scores"], 0
@@ -316,9 +327,10 @@ def main() -> int:
     for j, report in enumerate(reports):
         used = labels[:, j] >= 0
         columns = [e.index for e in pack.vocabulary.concepts()[report.concept] if e.index >= 0]
+        truth = labels[used, j] == POSITIVE
         class_ap = (
-            average_precision(class_scores[used][:, columns].max(axis=1), labels[used, j] == POSITIVE)
-            if columns
+            average_precision(class_scores[used][:, columns].max(axis=1), truth)
+            if columns and truth.any()  # no positive patch (every clip unreadable): no AP
             else 0.0
         )
         positive_clips = [r for r in clips if r["concept"] in relations[report.concept][0]]
