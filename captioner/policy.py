@@ -44,6 +44,7 @@ Rule = Literal[
     "music",
     "sibling",
     "generic",
+    "part",
     "dialogue",
     "repeat",
     "density",
@@ -117,6 +118,8 @@ def select_events(events: list[SoundEvent], dialogue: tuple[Span, ...], settings
         alive = _generics(alive, settings.cooldown_ms, drop)
     if settings.generic_confidence > 0:
         alive = _unnamed_generics(alive, settings.generic_confidence, drop)
+    if settings.part_of_louder:
+        alive = _parts(alive, settings, drop)
     if settings.cooldown_ms > 0:  # before the dialogue rule: a sound judged as a whole
         alive = _repeats(alive, settings.cooldown_ms, settings.music_cooldown_ms, drop)
     if settings.dialogue_gate:
@@ -376,6 +379,35 @@ def _unnamed_generics(alive: list[SoundEvent], confidence: float, drop: _Drop) -
         else:
             survivors.append(event)
     return survivors
+
+
+def _parts(alive: list[SoundEvent], settings: Selection, drop: _Drop) -> list[SoundEvent]:
+    """Drop a transient that is quieter than its surroundings and lies wholly inside a louder
+    sound (not music: a score is the surroundings of everything in it). A confident safety
+    sound is never taken for a part of another."""
+    gone: set[str] = set()
+    for event in alive:
+        if event.kind is not Kind.TRANSIENT or event.contrast_db >= 0 or _safety_exempt(event, settings):
+            continue
+        for other in alive:
+            if (
+                other is not event
+                and other.event_id not in gone
+                and other.kind not in (Kind.MUSIC, Kind.AMBIENCE)
+                and other.concept != event.concept
+                and other.start_ms <= event.start_ms
+                and event.end_ms <= other.end_ms
+                and other.contrast_db > 0
+            ):
+                gone.add(event.event_id)
+                drop(
+                    event,
+                    "part",
+                    f"inside {other.concept} ({other.event_id}) and {-event.contrast_db:.0f} dB below "
+                    "its surroundings: a part of that sound",
+                )
+                break
+    return [e for e in alive if e.event_id not in gone]
 
 
 def _names(specific: SoundEvent, generic: SoundEvent) -> bool:

@@ -90,6 +90,7 @@ class Selection:
         0.1  # siblings closer than this in score: word the sound as their parent (0 = off)
     )
     generic_redundancy: bool = True  # "[beeping]" is left out beside a specific sound of the same moment
+    part_of_louder: bool = True  # a quiet short sound wholly inside a louder one is a part of it
     generic_confidence: float = (
         0.8  # a generic sound no specific one names needs this peak score (alerts exempt; 0 = off)
     )

@@ -19,6 +19,7 @@ OPEN = Selection(
     sibling_redundancy=False,
     generic_redundancy=False,
     generic_confidence=0.0,
+    part_of_louder=False,
     dialogue_gate=False,
     gap_shift_ms=0,
     cooldown_ms=0,
@@ -484,3 +485,19 @@ def test_a_same_sound_concept_never_hides_a_more_important_one() -> None:
     louder_siren = replace(siren, peak_score=0.95)
     kept, rules = run([engine, louder_siren], replace(OPEN, sibling_redundancy=True))
     assert kept == {"s"} and rules["v"] == "sibling"
+
+
+def test_a_quiet_transient_inside_a_louder_sound_is_a_part_of_it() -> None:
+    glass = event("g", "glass", 28000, 30200, 0.7, level_db=-20.0, background_db=-34.0)
+    tail = event("t", "gunshot", 29700, 30200, 0.6, level_db=-30.0, background_db=-22.0)  # -8 dB
+    bark = event("b", "dog", 28500, 29000, 0.6, level_db=-18.0, background_db=-22.0)  # louder: a second sound
+    alarm = event("a", "smoke_alarm", 29000, 29500, 0.9, priority=5, level_db=-30.0, background_db=-22.0)
+    rules_on = replace(OPEN, part_of_louder=True)
+    kept, rules = run([glass, tail, bark, alarm], rules_on)
+    assert kept == {"g", "b", "a"} and rules["t"] == "part"
+    assert run([glass, tail], OPEN)[0] == {"g", "t"}  # the switch turns the rule off
+    # inside music (a score is everyone's surroundings) or only partly inside: kept
+    score = event("m", "music", 0, 60000, 0.9, kind=Kind.MUSIC, level_db=-20.0, background_db=-34.0)
+    late = event("l", "gunshot", 30000, 30700, 0.6, level_db=-30.0, background_db=-22.0)
+    assert run([score, tail], rules_on)[0] == {"m", "t"}
+    assert run([glass, late], rules_on)[0] == {"g", "l"}
