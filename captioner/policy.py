@@ -427,15 +427,21 @@ def _dialogue(
 ) -> list[SoundEvent]:
     """Sounds under dialogue: drop the unimportant and the unsure; move short ones into a gap.
 
-    Music is exempt from the priority test (it is captioned once, at its onset, even
-    when it starts under speech). A kept short event whose onset lies in dialogue moves
-    to the end of that dialogue span when the gap starts within gap_shift_ms.
+    Music, and a sound at least dialogue_masking_db louder than its surroundings, are exempt
+    from the priority test (music is captioned once, at its onset, even when it starts under
+    speech; a masking sound is why the speech cannot be heard). A kept short event whose onset
+    lies in dialogue moves to the end of that dialogue span when the gap starts within
+    gap_shift_ms.
     """
     survivors = []
     for event in alive:
         shared = overlap_ms(event.start_ms, event.end_ms, dialogue)
         if shared * 2 > event.duration_ms:
-            if event.priority < settings.dialogue_min_priority and event.kind is not Kind.MUSIC:
+            # A sound far louder than its surroundings masks the speech, and a viewer who hears
+            # nothing of the dialogue needs to know why: it stays whatever its priority.
+            masking = 0 < settings.dialogue_masking_db <= event.contrast_db
+            exempt = event.kind is Kind.MUSIC or masking
+            if event.priority < settings.dialogue_min_priority and not exempt:
                 drop(event, "dialogue", f"priority {event.priority} sound under dialogue")
                 continue
             # Attention sounds (doorbell, phone, knock, alarms) are costlier to miss, so under

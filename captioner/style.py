@@ -98,6 +98,7 @@ class Selection:
     music_min_ms: int = 3000  # shorter "music" is left out: usually a tonal sound, not a score (0 = off)
     dialogue_gate: bool = True
     dialogue_min_priority: int = 3  # under dialogue, lower priorities are dropped ...
+    dialogue_masking_db: float = 15.0  # ... unless this much louder than their surroundings (0 = off)
     dialogue_confidence: float = 0.6  # ... and kept ones need this confidence
     dialogue_alert_confidence: float = 0.5  # ... or this, for attention sounds (priority 4-5)
     gap_shift_ms: int = 1000  # a short event under dialogue may move this far into a gap (0 = off)
@@ -164,6 +165,7 @@ _RANGES: dict[str, tuple[float, float]] = {
     "speech_offset": (0.0, 1.0),
     "min_confidence": (0.0, 1.0),
     "dialogue_confidence": (0.0, 1.0),
+    "dialogue_masking_db": (0.0, 60.0),
     "dialogue_alert_confidence": (0.0, 1.0),
     "dialogue_min_priority": (1, 6),
     "max_cues_per_minute": (0, 60),

@@ -21,6 +21,7 @@ OPEN = Selection(
     generic_confidence=0.0,
     part_of_louder=False,
     dialogue_gate=False,
+    dialogue_masking_db=0.0,
     gap_shift_ms=0,
     cooldown_ms=0,
     max_cues_per_minute=0,
@@ -501,3 +502,16 @@ def test_a_quiet_transient_inside_a_louder_sound_is_a_part_of_it() -> None:
     late = event("l", "gunshot", 30000, 30700, 0.6, level_db=-30.0, background_db=-22.0)
     assert run([score, tail], rules_on)[0] == {"m", "t"}
     assert run([glass, late], rules_on)[0] == {"g", "l"}
+
+
+def test_a_sound_loud_enough_to_mask_the_speech_is_kept_under_dialogue() -> None:
+    # BBC Subtitle Guidelines §13.5: a sound that masks speech may be labelled.
+    talk = (Span(0, 10000),)
+    lasting = Kind.CONTINUOUS
+    gale = event("g", "wind", 1000, 7000, 0.65, kind=lasting, priority=2, background_db=-41.0)  # +21 dB
+    breeze = event("b", "wind", 8000, 9500, 0.65, kind=lasting, priority=2, background_db=-25.0)  # +5 dB
+    unsure = event("u", "wind", 500, 900, 0.5, priority=2, background_db=-41.0)  # loud but below 0.6
+    gate = replace(OPEN, dialogue_gate=True, dialogue_min_priority=3, dialogue_confidence=0.6)
+    kept, rules = run([gale, breeze, unsure], replace(gate, dialogue_masking_db=15.0), talk)
+    assert kept == {"g"} and rules["b"] == rules["u"] == "dialogue"
+    assert run([gale, breeze, unsure], gate, talk)[0] == set()  # 0 switches the exemption off
