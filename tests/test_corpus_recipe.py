@@ -126,3 +126,21 @@ def test_a_missing_program_stops_the_build_with_one_line_before_any_download(
     assert len(message.splitlines()) == 1
     assert "espeak-ng not found" in message and "install" in message
     assert not any(tmp_path.iterdir())
+
+
+def test_test_tone_negatives_are_audible_tones_over_near_silence_and_repeatable() -> None:
+    import numpy as np
+
+    from training.audio import RATE
+    from training.negatives import tones
+
+    made = tones(12, seed=3)
+    assert [m.samples.tobytes() for m in made] == [m.samples.tobytes() for m in tones(12, seed=3)]
+    for clip in made:
+        assert clip.samples.dtype == np.int16 and 3 * RATE <= clip.samples.size <= 8 * RATE
+        frames = clip.samples[: clip.samples.size // 160 * 160].reshape(-1, 160).astype(np.float64) / 32768
+        level_db = 10 * np.log10(np.mean(frames**2, axis=1) + 1e-12)
+        assert level_db.max() > -36  # a tone at -30 dBFS peak or louder (-3 dB RMS for a sine)
+        assert np.percentile(level_db, 5) < -50  # around it: near-silence or faint noise
+        spectrum = np.abs(np.fft.rfft(clip.samples.astype(np.float64)))
+        assert spectrum.max() > 20 * np.median(spectrum)  # tonal, not noise

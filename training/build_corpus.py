@@ -156,11 +156,11 @@ def process_package(package: str, deb: str, work: str) -> list[dict[str, str]]:
 
 
 def made_rows(work: Path) -> list[dict[str, str]]:
-    """Synthesized positives, espeak speech and room tone (cached as one list)."""
+    """Synthesized positives, espeak speech, room tone and test tones (cached as one list)."""
     state = work / "state" / "_made.json"
     if state.exists():
         return list(json.loads(state.read_text()))
-    from training.negatives import room_tone, speech
+    from training.negatives import room_tone, speech, tones
     from training.synthesize import synthesize
 
     rows = []
@@ -198,6 +198,12 @@ def made_rows(work: Path) -> list[dict[str, str]]:
                 made.params,
                 made.samples,
                 f"_negative/room_tone/{made.name}.wav",
+            )
+        )
+    for made in tones(60, seed=14):
+        rows.append(
+            _made_row(
+                work, made.name, "", "tone", made.params, made.samples, f"_negative/tone/{made.name}.wav"
             )
         )
     state.parent.mkdir(parents=True, exist_ok=True)

@@ -1,4 +1,4 @@
-"""Negative examples made here: synthetic speech (espeak-ng) and room tone."""
+"""Negative examples made here: synthetic speech (espeak-ng), room tone and test tones."""
 
 from __future__ import annotations
 
@@ -144,4 +144,40 @@ def room_tone(count: int, seed: int) -> list[Made]:
             np.int16
         )
         made.append(Made(f"room_{n}", f"{params}, peak {level:.0f} dBFS, {seconds:.1f} s", samples))
+    return made
+
+
+def tones(count: int, seed: int) -> list[Made]:
+    """Test tones, bleeps and plain electronic beeps (sine, square, triangle; steady or swept),
+    one to four in each clip, over near-silence or faint room noise: sounds a video carries
+    that no head's concept is, and that a head never shown one may take for anything."""
+    rng = np.random.default_rng(seed)
+    made = []
+    for n in range(count):
+        length = int(rng.uniform(3, 8) * RATE)
+        bed = rng.standard_normal(length) * 10 ** (rng.uniform(-90, -55) / 20)
+        described = []
+        for _ in range(int(rng.integers(1, 5))):
+            seconds = float(rng.uniform(0.1, 3.0))
+            size = min(int(seconds * RATE), length - 1)
+            start = int(rng.integers(0, length - size))
+            low = float(np.exp(rng.uniform(np.log(200), np.log(4000))))
+            high = low * float(rng.choice([1.0, 1.0, rng.uniform(0.5, 2.0)]))  # a third are sweeps
+            phase = 2 * np.pi * np.cumsum(np.linspace(low, high, size)) / RATE
+            shape = str(rng.choice(["sine", "square", "triangle"]))
+            wave = {
+                "sine": np.sin(phase),
+                "square": np.sign(np.sin(phase)),
+                "triangle": 2 / np.pi * np.arcsin(np.sin(phase)),
+            }[shape]
+            fade = min(size // 2, int(rng.choice([0, 80, 400])))  # none (a click), 5 ms or 25 ms
+            if fade:
+                ramp = np.linspace(0, 1, fade)
+                wave[:fade] *= ramp
+                wave[size - fade :] *= ramp[::-1]
+            level = rng.uniform(-30, -3)
+            bed[start : start + size] += wave * 10 ** (level / 20)
+            described.append(f"{shape} {low:.0f}-{high:.0f} Hz {seconds:.1f} s at {level:.0f} dBFS")
+        samples = np.round(np.clip(bed, -1, 1) * 32767).astype(np.int16)
+        made.append(Made(f"tone_{n}", "; ".join(described), samples))
     return made
