@@ -169,43 +169,18 @@ def made_rows(work: Path) -> list[dict[str, str]]:
         samples = to_int16(clip.samples)
         cid = f"synth-{clip.generator}-{n:03d}"
         rows.append(_made_row(work, cid, clip.concept, "", clip.params, samples, f"{clip.concept}/{cid}.wav"))
-    progress("speaking negatives and the speech pool with espeak-ng")
-    for made in speech(160, seed=11):
-        rows.append(
-            _made_row(
-                work, made.name, "", "speech", made.params, made.samples, f"_negative/speech/{made.name}.wav"
-            )
-        )
-    for made in speech(90, seed=12):
-        rows.append(
-            _made_row(
-                work,
-                f"pool_{made.name}",
-                "",
-                "_speech",
-                made.params,
-                made.samples,
-                f"_speech/pool_{made.name}.wav",
-            )
-        )
-    for made in room_tone(60, seed=13):
-        rows.append(
-            _made_row(
-                work,
-                made.name,
-                "",
-                "room_tone",
-                made.params,
-                made.samples,
-                f"_negative/room_tone/{made.name}.wav",
-            )
-        )
-    for made in tones(60, seed=14):
-        rows.append(
-            _made_row(
-                work, made.name, "", "tone", made.params, made.samples, f"_negative/tone/{made.name}.wav"
-            )
-        )
+    progress("speaking negatives and the speech pool with espeak-ng, making room tone and test tones")
+    # (kind, clips, id prefix, folder under DIR/clips); kind "_speech" is the mixing pool
+    made_negatives = (
+        ("speech", speech(160, seed=11), "", "_negative/speech"),
+        ("_speech", speech(90, seed=12), "pool_", "_speech"),
+        ("room_tone", room_tone(60, seed=13), "", "_negative/room_tone"),
+        ("tone", tones(60, seed=14), "", "_negative/tone"),
+    )
+    for kind, made_list, prefix, folder in made_negatives:
+        for made in made_list:
+            cid = prefix + made.name
+            rows.append(_made_row(work, cid, "", kind, made.params, made.samples, f"{folder}/{cid}.wav"))
     state.parent.mkdir(parents=True, exist_ok=True)
     state.write_text(json.dumps(rows))
     return rows

@@ -6,8 +6,8 @@ Reads training/clips.csv and training/negatives.csv (the clip lists with licence
 every clip as a caption run would (16 kHz, 0.96 s patches every 0.48 s, level-averaged),
 three times in three versions: clean at a random gain, mixed under synthetic speech, and
 mixed with room noise, each with 0.5-1.5 s of that background before it (so a short sound
-falls at every phase of the patch grid) and the rest of two seconds after. Then fits one head per concept
-listed in training/heads.yaml (cross-validated by clip), writes
+falls at every phase of the patch grid) and the rest of two seconds after. Then fits one
+head per concept listed in training/heads.yaml (cross-validated by clip), writes
 captioner/data/yamnet_heads.npz and the built-in negative pool, pins the head file's SHA-256
 in the pack manifest, and prints per-concept counts and cross-validated AUC / AP.
 """
@@ -39,7 +39,7 @@ from captioner.teach import NEGATIVE_POOL, embed, loud_patches, patch_peaks, sav
 
 RATE = 16000
 HOP_MS, PATCH_MS = 480, 960
-CONTEXT_S = 1.0  # background before and after each clip
+CONTEXT_S = 1.0  # background around each clip: 2 * CONTEXT_S in all, split at random
 MAX_PATCHES = 8  # per clip version, so long recordings do not outweigh short ones
 # Each clip is heard ROUNDS times clean, under speech and in noise (SNR_DB ranges): with one
 # draw each, which patches of a short sound a head learnt from was luck of the seed.
