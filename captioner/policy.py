@@ -395,8 +395,7 @@ def _parts(alive: list[SoundEvent], settings: Selection, drop: _Drop) -> list[So
                 and other.event_id not in gone
                 and other.kind not in (Kind.MUSIC, Kind.AMBIENCE)
                 and other.concept != event.concept
-                and other.start_ms <= event.start_ms
-                and event.end_ms <= other.end_ms
+                and _shared_ms(event, other) == event.duration_ms  # wholly inside
                 and other.contrast_db > 0
             ):
                 gone.add(event.event_id)
