@@ -190,6 +190,8 @@ def detect_events(track: ScoreTrack, vocabulary: Vocabulary, settings: Detection
             if settings.onset_refine:
                 start_ms = refine_onset(track, start_ms, first, end_ms)
             best = _best_entry(track, classed, first, last) if classed else entries[0]
+            if concept in track.head_concepts and not _heard_by_classes(track, classed, first, last, settings):
+                best = entries[0]  # the head found it; classes this unsure must not name it
             level, background, floor = _levels(track, int(track.patch_start_ms(first)), end_ms)
             found.append(
                 SoundEvent(
@@ -223,6 +225,15 @@ def _best_entry(track: ScoreTrack, entries: list[ClassEntry], first: int, last: 
     """The class that scored highest over the event: it chooses the wording."""
     window = track.scores[first:last, [e.index for e in entries]]
     return entries[int(np.argmax(window.sum(axis=0)))]
+
+
+def _heard_by_classes(
+    track: ScoreTrack, entries: list[ClassEntry], first: int, last: int, settings: Detection
+) -> bool:
+    """Whether any of the concept's own classes reached the onset threshold over the event."""
+    if not entries:
+        return False
+    return bool(track.scores[first:last, [e.index for e in entries]].max() >= settings.onset_threshold)
 
 
 def _wording(entries: tuple[ClassEntry, ...]) -> tuple[str, str] | tuple[()]:

@@ -9,7 +9,7 @@ import pytest
 
 from captioner import packs
 from captioner.errors import PackError
-from captioner.events import concept_curves
+from captioner.events import concept_curves, detect_events
 from captioner.features import Frontend
 from captioner.fitting import NEGATIVE, POSITIVE, TrainingSet, fit_logistic, train_heads
 from captioner.heads import (
@@ -25,6 +25,7 @@ from captioner.heads import (
     with_head_concepts,
 )
 from captioner.scores import ScoreTrack, compute_scores
+from captioner.style import Detection
 from captioner.vocabulary import Kind
 
 
@@ -136,6 +137,23 @@ def test_scores_stage_uses_heads_where_present_and_classes_elsewhere(pack: packs
     curves = concept_curves(track, vocabulary)
     np.testing.assert_allclose(curves["dog"][0], [0.9, 0.1])
     np.testing.assert_allclose(curves["cat"][0], [0.3, 0.7])
+
+
+def test_a_head_found_sound_is_worded_by_its_concept_unless_a_class_heard_it(pack: packs.LoadedPack) -> None:
+    # The knock concept's classes are Knock then Tap. When only the head hears the sound, a
+    # faint Tap score must not choose the wording: the concept's first class names it.
+    vocabulary = pack.vocabulary
+    knock, tap = (e.index for e in vocabulary.concepts()["knock"])
+    head = np.array([[0.0], [0.9], [0.9], [0.0]], np.float32)
+    settings = Detection(onset_refine=False)
+    faint = _track(head, ("knock",))
+    faint.scores[1:3, tap] = 0.05
+    (event,) = [e for e in detect_events(faint, vocabulary, settings) if e.concept == "knock"]
+    assert event.label == "Knock" and event.phrase == "knocking"
+    heard = _track(head, ("knock",))
+    heard.scores[1:3, tap] = 0.5  # the Tap class itself passed the onset threshold
+    (event,) = [e for e in detect_events(heard, vocabulary, settings) if e.concept == "knock"]
+    assert event.label == "Tap"
 
 
 def test_a_head_brings_a_new_concept_into_the_vocabulary(pack: packs.LoadedPack) -> None:
