@@ -115,25 +115,34 @@ def bridge(curve: np.ndarray, patches: int) -> np.ndarray:
     return maximum_filter1d(curve, size=patches, mode="nearest") if patches > 1 else curve
 
 
+ATTENTION_PRIORITY = 4  # alarms, sirens, phones, doorbells, knocks and up (see the vocabulary)
+
+
 def concept_curves(
     track: ScoreTrack, vocabulary: Vocabulary
 ) -> dict[str, tuple[np.ndarray, tuple[ClassEntry, ...]]]:
     """Concept -> (its score per patch, its classes), captioned kinds only.
 
     This is the one place that decides where a concept's curve comes from: its learned head
-    where the track has one, else the highest of its classifier classes.
+    where the track has one, else the highest of its classifier classes. For attention sounds
+    (priority ATTENTION_PRIORITY and up: alarms, sirens, phones, doorbells, knocks) the head
+    may add what the classes miss but never take away what they hear: the higher of the two
+    counts, because a missed alarm costs a viewer more than one more cue to review.
     """
     heads = {concept: column for column, concept in enumerate(track.head_concepts)}
     curves = {}
     for concept, entries in vocabulary.concepts().items():
         if entries[0].kind in _NEVER_CAPTIONED:
             continue
-        if concept in heads:
-            curves[concept] = (track.head_scores[:, heads[concept]], entries)
-            continue
         columns = [e.index for e in entries if e.index >= 0]
-        if columns:
-            curves[concept] = (track.scores[:, columns].max(axis=1), entries)
+        classes = track.scores[:, columns].max(axis=1) if columns else None
+        if concept in heads:
+            head = track.head_scores[:, heads[concept]]
+            if classes is not None and entries[0].priority >= ATTENTION_PRIORITY:
+                head = np.maximum(head, classes)
+            curves[concept] = (head, entries)
+        elif classes is not None:
+            curves[concept] = (classes, entries)
     return curves
 
 

@@ -30,7 +30,7 @@ from dataclasses import dataclass, replace
 from typing import Any, Literal
 
 from .dialogue import overlap_ms
-from .events import LASTING, SoundEvent, Span
+from .events import ATTENTION_PRIORITY, LASTING, SoundEvent, Span
 from .style import Selection
 from .vocabulary import Kind
 
@@ -446,7 +446,7 @@ def _dialogue(
             # Attention sounds (doorbell, phone, knock, alarms) are costlier to miss, so under
             # dialogue they need less confidence than ordinary story sounds.
             needed = (
-                settings.dialogue_alert_confidence if event.priority >= 4 else settings.dialogue_confidence
+                settings.dialogue_alert_confidence if event.priority >= ATTENTION_PRIORITY else settings.dialogue_confidence
             )
             if event.peak_score < needed:
                 drop(event, "dialogue", f"under dialogue and peak score {event.peak_score:.2f} < {needed}")

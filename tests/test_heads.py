@@ -139,6 +139,17 @@ def test_scores_stage_uses_heads_where_present_and_classes_elsewhere(pack: packs
     np.testing.assert_allclose(curves["cat"][0], [0.3, 0.7])
 
 
+def test_an_alert_head_adds_to_its_classes_but_never_takes_away(pack: packs.LoadedPack) -> None:
+    # A phone is an attention sound (priority 4): a head that misses a ring the Telephone class
+    # hears must not silence it, while a head that hears what the class misses still counts.
+    vocabulary = pack.vocabulary
+    assert vocabulary.concepts()["telephone"][0].priority >= 4 > vocabulary.concepts()["dog"][0].priority
+    phone = vocabulary.concepts()["telephone"][0].index
+    track = _track(np.array([[0.1], [0.9]], np.float32), ("telephone",))
+    track.scores[:, phone] = [0.8, 0.2]
+    np.testing.assert_allclose(concept_curves(track, vocabulary)["telephone"][0], [0.8, 0.9])
+
+
 def test_a_head_found_sound_is_worded_by_its_concept_unless_a_class_heard_it(pack: packs.LoadedPack) -> None:
     # The knock concept's classes are Knock then Tap. When only the head hears the sound, a
     # faint Tap score must not choose the wording: the concept's first class names it.
