@@ -221,13 +221,15 @@ def main() -> int:
     parser.add_argument(
         "--cache", type=Path, default=None, help="embedding cache folder (default: WORK/embeddings)"
     )
-    parser.add_argument("--l2", type=float, default=1e-3)
+    # 1e-2: the cross-validated AP of most heads is higher than with 1e-3 or 1e-1 (RESULTS.md)
+    parser.add_argument("--l2", type=float, default=1e-2)
     parser.add_argument("--folds", type=int, default=5, help="cross-validation folds (default 5)")
     parser.add_argument(
         "--min-real-share",
         type=float,
-        default=0.5,
-        help="share of a head's clips that must be real recordings, not synthesized (default 0.5)",
+        default=0.0,
+        help="share of a head's clips that must be real recordings, not synthesized (default 0: "
+        "the held-out comparison with the classes decides alone)",
     )
     parser.add_argument(
         "--margin",
@@ -335,8 +337,9 @@ def main() -> int:
         )
         positive_clips = [r for r in clips if r["concept"] in relations[report.concept][0]]
         real_share = sum(r["synthesized"] != "1" for r in positive_clips) / max(1, len(positive_clips))
-        # Heads learnt mostly from synthesized sounds did not carry over to sounds made another
-        # way (a phone heard as a smoke alarm, a siren as an alarm clock): they stay out.
+        # --min-real-share can keep out heads learnt mostly from synthesized sounds; with test
+        # tones as negatives and the stronger penalty they no longer confused one alert with
+        # another on the development set, so by default the held-out comparison decides alone.
         wins = (
             report.average_precision is not None
             and report.average_precision > class_ap + args.margin
