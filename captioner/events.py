@@ -199,7 +199,8 @@ def detect_events(track: ScoreTrack, vocabulary: Vocabulary, settings: Detection
             if settings.onset_refine:
                 start_ms = refine_onset(track, start_ms, first, end_ms)
             best = _best_entry(track, classed, first, last) if classed else entries[0]
-            if concept in track.head_concepts and not _heard_by_classes(track, classed, first, last, settings):
+            heard = _heard_by_classes(track, classed, first, last, settings)
+            if concept in track.head_concepts and not heard:
                 best = entries[0]  # the head found it; classes this unsure must not name it
             level, background, floor = _levels(track, int(track.patch_start_ms(first)), end_ms)
             found.append(

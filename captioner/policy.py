@@ -445,9 +445,8 @@ def _dialogue(
                 continue
             # Attention sounds (doorbell, phone, knock, alarms) are costlier to miss, so under
             # dialogue they need less confidence than ordinary story sounds.
-            needed = (
-                settings.dialogue_alert_confidence if event.priority >= ATTENTION_PRIORITY else settings.dialogue_confidence
-            )
+            alert = event.priority >= ATTENTION_PRIORITY
+            needed = settings.dialogue_alert_confidence if alert else settings.dialogue_confidence
             if event.peak_score < needed:
                 drop(event, "dialogue", f"under dialogue and peak score {event.peak_score:.2f} < {needed}")
                 continue

@@ -154,7 +154,7 @@ def test_a_head_found_sound_is_worded_by_its_concept_unless_a_class_heard_it(pac
     # The knock concept's classes are Knock then Tap. When only the head hears the sound, a
     # faint Tap score must not choose the wording: the concept's first class names it.
     vocabulary = pack.vocabulary
-    knock, tap = (e.index for e in vocabulary.concepts()["knock"])
+    tap = next(e.index for e in vocabulary.concepts()["knock"] if e.label == "Tap")
     head = np.array([[0.0], [0.9], [0.9], [0.0]], np.float32)
     settings = Detection(onset_refine=False)
     faint = _track(head, ("knock",))
