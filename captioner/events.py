@@ -9,7 +9,7 @@ from scipy.ndimage import maximum_filter1d, median_filter
 
 from .scores import ScoreTrack
 from .style import Detection
-from .vocabulary import ClassEntry, Kind, Vocabulary
+from .vocabulary import ALERT_PRIORITY, ClassEntry, Kind, Vocabulary
 
 _NEVER_CAPTIONED = (Kind.SPEECH, Kind.IGNORE)
 # The noise floor is a low percentile of the surrounding frame levels: the pauses between
@@ -115,9 +115,6 @@ def bridge(curve: np.ndarray, patches: int) -> np.ndarray:
     return maximum_filter1d(curve, size=patches, mode="nearest") if patches > 1 else curve
 
 
-ATTENTION_PRIORITY = 4  # alarms, sirens, phones, doorbells, knocks and up (see the vocabulary)
-
-
 def concept_curves(
     track: ScoreTrack, vocabulary: Vocabulary
 ) -> dict[str, tuple[np.ndarray, tuple[ClassEntry, ...]]]:
@@ -125,7 +122,7 @@ def concept_curves(
 
     This is the one place that decides where a concept's curve comes from: its learned head
     where the track has one, else the highest of its classifier classes. For attention sounds
-    (priority ATTENTION_PRIORITY and up: alarms, sirens, phones, doorbells, knocks) the head
+    (priority ALERT_PRIORITY and up: alarms, sirens, phones, doorbells, knocks) the head
     may add what the classes miss but never take away what they hear: the higher of the two
     counts, because a missed alarm costs a viewer more than one more cue to review.
     """
@@ -138,7 +135,7 @@ def concept_curves(
         classes = track.scores[:, columns].max(axis=1) if columns else None
         if concept in heads:
             head = track.head_scores[:, heads[concept]]
-            if classes is not None and entries[0].priority >= ATTENTION_PRIORITY:
+            if classes is not None and entries[0].priority >= ALERT_PRIORITY:
                 head = np.maximum(head, classes)
             curves[concept] = (head, entries)
         elif classes is not None:

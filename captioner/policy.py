@@ -30,9 +30,9 @@ from dataclasses import dataclass, replace
 from typing import Any, Literal
 
 from .dialogue import overlap_ms
-from .events import ATTENTION_PRIORITY, LASTING, SoundEvent, Span
+from .events import LASTING, SoundEvent, Span
 from .style import Selection
-from .vocabulary import Kind
+from .vocabulary import ALERT_PRIORITY, Kind
 
 Rule = Literal[
     "kept",
@@ -374,7 +374,7 @@ def _unnamed_generics(alive: list[SoundEvent], confidence: float, drop: _Drop) -
     and 5) are exempt: "[alarm blaring]" warns even without its source."""
     survivors = []
     for event in alive:
-        if event.generic and event.priority < 4 and event.peak_score < confidence:
+        if event.generic and event.priority < ALERT_PRIORITY and event.peak_score < confidence:
             drop(event, "generic", f"names no source and peak score {event.peak_score:.2f} < {confidence}")
         else:
             survivors.append(event)
@@ -445,7 +445,7 @@ def _dialogue(
                 continue
             # Attention sounds (doorbell, phone, knock, alarms) are costlier to miss, so under
             # dialogue they need less confidence than ordinary story sounds.
-            alert = event.priority >= ATTENTION_PRIORITY
+            alert = event.priority >= ALERT_PRIORITY
             needed = settings.dialogue_alert_confidence if alert else settings.dialogue_confidence
             if event.peak_score < needed:
                 drop(event, "dialogue", f"under dialogue and peak score {event.peak_score:.2f} < {needed}")

@@ -15,6 +15,11 @@ import yaml
 
 from .errors import PackError, StyleError
 
+# Attention and safety sounds (alarms, sirens, phones, doorbells, knocks): priorities 4 and 5.
+# They are never left out of a merge, need less confidence under dialogue, and keep their
+# classifier classes beside a learned head.
+ALERT_PRIORITY = 4
+
 
 class Kind(str, Enum):
     """How a concept behaves on screen."""

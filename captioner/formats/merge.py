@@ -29,6 +29,7 @@ from ..cues import Cue, unique_identifier
 from ..errors import SubtitleError
 from ..policy import Decision
 from ..style import Style
+from ..vocabulary import ALERT_PRIORITY
 from . import webvtt as vtt_writer
 from .delivery import delivery_text
 from .placement import ACTIONS, Board, MergedCue, SoundOutcome, pieces
@@ -52,7 +53,6 @@ __all__ = [
 ]
 
 MERGE_HEADING = "NOTE captioner merge"
-ALERT_PRIORITY = 4  # attention and safety sounds (vocabulary priorities 4-5) are never left out
 _OURS = re.compile(r"^(NOTE captioner (?:record|merge))\b", re.MULTILINE)
 _VOCABULARY = Path(__file__).resolve().parents[1] / "data" / "yamnet_vocabulary.yaml"
 _MARKS = "[]♪# \t"
