@@ -173,6 +173,7 @@ def detect_events(track: ScoreTrack, vocabulary: Vocabulary, settings: Detection
     lineage = ancestry(vocabulary)
     by_concept = vocabulary.concepts()
     needed = max(1, -(-settings.lasting_min_active_ms // track.hop_ms))  # ceiling division
+    headed = set(track.head_concepts)
     found: list[SoundEvent] = []
     for concept, (curve, entries) in concept_curves(track, vocabulary).items():
         smooth = (
@@ -195,10 +196,9 @@ def detect_events(track: ScoreTrack, vocabulary: Vocabulary, settings: Detection
                 continue
             if settings.onset_refine:
                 start_ms = refine_onset(track, start_ms, first, end_ms)
-            best = _best_entry(track, classed, first, last) if classed else entries[0]
-            heard = _heard_by_classes(track, classed, first, last, settings)
-            if concept in track.head_concepts and not heard:
-                best = entries[0]  # the head found it; classes this unsure must not name it
+            # A sound a head found is named by a class only if that class itself was heard.
+            floor = settings.onset_threshold if concept in headed else 0.0
+            best = _best_entry(track, entries, classed, first, last, floor)
             level, background, floor = _levels(track, int(track.patch_start_ms(first)), end_ms)
             found.append(
                 SoundEvent(
@@ -228,19 +228,22 @@ def detect_events(track: ScoreTrack, vocabulary: Vocabulary, settings: Detection
     return [replace(e, event_id=f"e{number:04d}") for number, e in enumerate(found, start=1)]
 
 
-def _best_entry(track: ScoreTrack, entries: list[ClassEntry], first: int, last: int) -> ClassEntry:
-    """The class that scored highest over the event: it chooses the wording."""
-    window = track.scores[first:last, [e.index for e in entries]]
-    return entries[int(np.argmax(window.sum(axis=0)))]
-
-
-def _heard_by_classes(
-    track: ScoreTrack, entries: list[ClassEntry], first: int, last: int, settings: Detection
-) -> bool:
-    """Whether any of the concept's own classes reached the onset threshold over the event."""
-    if not entries:
-        return False
-    return bool(track.scores[first:last, [e.index for e in entries]].max() >= settings.onset_threshold)
+def _best_entry(
+    track: ScoreTrack,
+    entries: tuple[ClassEntry, ...],
+    classed: list[ClassEntry],
+    first: int,
+    last: int,
+    floor: float,
+) -> ClassEntry:
+    """The class that scored highest over the event chooses the wording; when none of the
+    concept's classes reached `floor`, its first entry names it."""
+    if not classed:
+        return entries[0]
+    window = track.scores[first:last, [e.index for e in classed]]
+    if window.max() < floor:
+        return entries[0]
+    return classed[int(np.argmax(window.sum(axis=0)))]
 
 
 def _wording(entries: tuple[ClassEntry, ...]) -> tuple[str, str] | tuple[()]:
