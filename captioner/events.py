@@ -132,14 +132,13 @@ def concept_curves(
         if entries[0].kind in _NEVER_CAPTIONED:
             continue
         columns = [e.index for e in entries if e.index >= 0]
-        classes = track.scores[:, columns].max(axis=1) if columns else None
         if concept in heads:
             head = track.head_scores[:, heads[concept]]
-            if classes is not None and entries[0].priority >= ALERT_PRIORITY:
-                head = np.maximum(head, classes)
+            if columns and entries[0].priority >= ALERT_PRIORITY:
+                head = np.maximum(head, track.scores[:, columns].max(axis=1))
             curves[concept] = (head, entries)
-        elif classes is not None:
-            curves[concept] = (classes, entries)
+        elif columns:
+            curves[concept] = (track.scores[:, columns].max(axis=1), entries)
     return curves
 
 
