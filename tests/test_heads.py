@@ -135,7 +135,12 @@ def test_scores_stage_uses_heads_where_present_and_classes_elsewhere(pack: packs
     track.scores[:, dog] = 0.2  # the class says little: the head decides
     track.scores[:, cat] = [0.3, 0.7]
     curves = concept_curves(track, vocabulary)
-    np.testing.assert_allclose(curves["dog"][0], [0.9, 0.1])
+    # An ordinary sound's head is read with 1.0 at one negative in 10**4 instead of the file's
+    # 10**DECADES: 0.9 in the file = 4.65 decades (past 4: 1.0), 0.1 = 1.85 decades -> 0.14.
+    decades = FLOOR_DECADES + np.array([0.9, 0.1]) * (DECADES - FLOOR_DECADES)
+    expected = np.clip((decades - FLOOR_DECADES) / (4.0 - FLOOR_DECADES), 0, 1)
+    np.testing.assert_allclose(curves["dog"][0], expected)
+    np.testing.assert_allclose(curves["dog"][0], [1.0, 0.14], atol=1e-6)
     np.testing.assert_allclose(curves["cat"][0], [0.3, 0.7])
 
 
@@ -173,7 +178,7 @@ def test_a_head_brings_a_new_concept_into_the_vocabulary(pack: packs.LoadedPack)
     entry = vocabulary.concepts()["gate_squeak"][0]
     assert entry.phrase == "gate squeak" and entry.kind is Kind.TRANSIENT and entry.index == -1
     track = _track(np.array([[0.2], [0.8]], np.float32), ("gate_squeak",))
-    np.testing.assert_allclose(concept_curves(track, vocabulary)["gate_squeak"][0], [0.2, 0.8])
+    np.testing.assert_allclose(concept_curves(track, vocabulary)["gate_squeak"][0], [0.28, 1.0], atol=1e-6)
 
 
 def test_compute_scores_applies_heads_to_level_averaged_embeddings(pack: packs.LoadedPack) -> None:
