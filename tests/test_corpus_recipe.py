@@ -144,3 +144,18 @@ def test_test_tone_negatives_are_audible_tones_over_near_silence_and_repeatable(
         assert np.percentile(level_db, 5) < -50  # around it: near-silence or faint noise
         spectrum = np.abs(np.fft.rfft(clip.samples.astype(np.float64)))
         assert spectrum.max() > 20 * np.median(spectrum)  # tonal, not noise
+
+
+def test_head_relations_follow_the_vocabulary_and_the_tonal_flag() -> None:
+    # A car is a vehicle (positive for the vehicle head); an "animal" clip may be this dog (neither);
+    # a test tone is neither positive nor negative for a tonal head, and a negative for the others.
+    from training.train_heads import concept_relations
+
+    parents = {"dog": "animal", "animal": None, "car": "vehicle", "vehicle": None, "siren": None}
+    config = {"heads": {"dog": {}, "vehicle": {}, "siren": {"tonal": True}}}
+    relations = concept_relations(config, parents)
+    assert relations["vehicle"][0] == {"vehicle", "car"}
+    assert "animal" in relations["dog"][1] and "_negative:tone" not in relations["dog"][1]
+    assert relations["siren"] == ({"siren"}, {"_negative:tone"})
+    shipped = yaml.safe_load((VOCABULARY.parent.parent.parent / "training" / "heads.yaml").read_text())
+    assert all("_negative:tone" not in (spec or {}).get("ignore", []) for spec in shipped["heads"].values())

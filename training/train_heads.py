@@ -188,6 +188,8 @@ def concept_relations(
         spec = config["heads"][head] or {}
         positive = {head, *spec.get("also", [])}
         ignore = set(spec.get("ignore", []))
+        if spec.get("tonal"):
+            ignore.add("_negative:tone")  # a test tone is neither an alarm nor proof of its absence
         for concept in vocabulary_parents:
             if head in ancestors(concept):
                 positive.add(concept)  # a car is a vehicle
