@@ -35,6 +35,7 @@ DECADES = 5.0  # score 1.0 = one negative in 10**DECADES
 FLOOR_DECADES = 1.5
 _KNOT_DECADES = np.linspace(0.0, DECADES, 11)  # calibration knots every half decade
 FORMAT = "captioner-heads-1"
+_BLOCK = 2048  # patches per block when heads are applied
 
 
 @dataclass(frozen=True, slots=True)
@@ -49,11 +50,14 @@ class NewConcept:
 
 @dataclass(frozen=True, slots=True, eq=False)
 class HeadSet:
-    """Linear heads with calibrations, in one stack.
+    """Heads with calibrations, in one stack: linear, or over one shared hidden layer.
 
-    weights: (n_heads, n_inputs) float32, n_inputs = embedding width (+ number of classes
-        when `uses_class_scores`); bias: (n_heads,); knots: (n_heads, n_knots) raw logits at
-        which the held-out negatives' survival is 10**-(knot_scores * DECADES).
+    inputs: the embedding (n, d), then the class probabilities when `uses_class_scores`.
+    hidden_weights: (n_hidden, n_inputs) and hidden_bias: (n_hidden,) of a ReLU layer that
+        every head reads, or None for linear heads that read the inputs themselves.
+    weights: (n_heads, n_hidden or n_inputs) float32; bias: (n_heads,); knots: (n_heads,
+        n_knots) raw logits at which the held-out negatives' survival falls by each half
+        decade; knot_scores: the score at each knot (see the module docstring).
     """
 
     concepts: tuple[str, ...]
@@ -64,15 +68,26 @@ class HeadSet:
     uses_class_scores: bool = False
     new_concepts: Mapping[str, NewConcept] = field(default_factory=dict)
     info: Mapping[str, Any] = field(default_factory=dict)  # what the heads were trained on, metrics
+    hidden_weights: np.ndarray | None = None
+    hidden_bias: np.ndarray | None = None
 
     @property
     def n_inputs(self) -> int:
-        return int(self.weights.shape[1])
+        first = self.weights if self.hidden_weights is None else self.hidden_weights
+        return int(first.shape[1])
 
     def raw(self, embeddings: np.ndarray, class_scores: np.ndarray) -> np.ndarray:
         """Raw logits (n, n_heads) for embeddings (n, d) and class probabilities (n, n_classes)."""
-        inputs = np.hstack([embeddings, class_scores]) if self.uses_class_scores else embeddings
-        logits: np.ndarray = inputs.astype(np.float32, copy=False) @ self.weights.T + self.bias
+        logits = np.empty((len(embeddings), len(self.concepts)), np.float32)
+        for start in range(0, len(embeddings), _BLOCK):  # in blocks: an hour's inputs at once would be ~50 MB
+            rows = slice(start, start + _BLOCK)
+            x = embeddings[rows]
+            if self.uses_class_scores:
+                x = np.hstack([x, class_scores[rows]])
+            x = x.astype(np.float32, copy=False)
+            if self.hidden_weights is not None and self.hidden_bias is not None:
+                x = np.maximum(x @ self.hidden_weights.T + self.hidden_bias, 0.0)
+            logits[rows] = x @ self.weights.T + self.bias
         return logits
 
     def __call__(self, embeddings: np.ndarray, class_scores: np.ndarray) -> np.ndarray:
@@ -136,6 +151,12 @@ def heads_bytes(heads: HeadSet) -> bytes:
         },
         "info": dict(heads.info),
     }
+    hidden: dict[str, Any] = {}
+    if heads.hidden_weights is not None and heads.hidden_bias is not None:
+        hidden = {
+            "hidden_weights": heads.hidden_weights.astype(np.float32),
+            "hidden_bias": heads.hidden_bias.astype(np.float32),
+        }
     handle = io.BytesIO()
     np.savez_compressed(
         handle,
@@ -144,6 +165,7 @@ def heads_bytes(heads: HeadSet) -> bytes:
         knots=heads.knots.astype(np.float32),
         knot_scores=heads.knot_scores.astype(np.float32),
         meta=np.array(json.dumps(meta, sort_keys=True)),
+        **hidden,
     )
     return handle.getvalue()
 
@@ -170,6 +192,9 @@ def load_heads(path: Path, *, expected_sha256: str | None = None) -> HeadSet:
             weights, bias = arrays["weights"], arrays["bias"]
             knots, scores = arrays["knots"], arrays["knot_scores"]
             meta = json.loads(str(arrays["meta"]))
+            layered = "hidden_weights" in arrays.files
+            hidden_w = arrays["hidden_weights"].astype(np.float32) if layered else None
+            hidden_b = arrays["hidden_bias"].astype(np.float32) if layered else None
     except (OSError, ValueError, KeyError) as exc:
         raise PackError(
             path, f"not a captioner head file ({exc})", "train one with `captioner teach`"
@@ -178,7 +203,12 @@ def load_heads(path: Path, *, expected_sha256: str | None = None) -> HeadSet:
         raise PackError(path, "not a captioner head file (format)", "train one with `captioner teach`")
     concepts = tuple(str(c) for c in meta["concepts"])
     n = len(concepts)
-    if weights.ndim != 2 or weights.shape[0] != n or bias.shape != (n,) or knots.shape != (n, scores.size):
+    fits = weights.ndim == 2 and weights.shape[0] == n and bias.shape == (n,)
+    fits = fits and knots.shape == (n, scores.size)
+    if hidden_w is not None and hidden_b is not None:
+        fits = fits and hidden_w.ndim == 2 and hidden_b.shape == (hidden_w.shape[0],)
+        fits = fits and weights.shape[1] == hidden_w.shape[0]
+    if not fits:
         raise PackError(path, "head arrays do not fit together", "train the head file again")
     try:
         new = {
@@ -198,6 +228,8 @@ def load_heads(path: Path, *, expected_sha256: str | None = None) -> HeadSet:
         bool(meta.get("uses_class_scores", False)),
         new,
         dict(meta.get("info", {})),
+        hidden_w,
+        hidden_b,
     )
 
 
@@ -227,21 +259,52 @@ def combine_heads(
     if len(head_sets) == 1:
         return head_sets[0]
     use_scores = any(h.uses_class_scores for h in head_sets)
-    weights = [
-        h.weights if h.uses_class_scores or not use_scores else np.pad(h.weights, ((0, 0), (0, n_classes)))
-        for h in head_sets
-    ]
-    first = head_sets[0]
-    return replace(
-        first,
+
+    def widen(first_layer: np.ndarray, heads: HeadSet) -> np.ndarray:  # no class-score inputs: zeros
+        if heads.uses_class_scores or not use_scores:
+            return first_layer
+        return np.pad(first_layer, ((0, 0), (0, n_classes)))
+
+    combined = replace(
+        head_sets[0],
         concepts=tuple(c for h in head_sets for c in h.concepts),
-        weights=np.vstack(weights),
         bias=np.concatenate([h.bias for h in head_sets]),
         knots=np.vstack([h.knots for h in head_sets]),
         uses_class_scores=use_scores,
         new_concepts={k: v for h in head_sets for k, v in h.new_concepts.items()},
         info={"files": [dict(h.info) for h in head_sets]},
     )
+    if all(h.hidden_weights is None for h in head_sets):
+        return replace(combined, weights=np.vstack([widen(h.weights, h) for h in head_sets]))
+    # One wider hidden layer; each file's heads read only their own hidden units.
+    layers = [_as_layered(h) for h in head_sets]
+    weights = np.zeros((len(combined.concepts), sum(w.shape[1] for w, *_ in layers)), np.float32)
+    row = column = 0
+    for w, *_ in layers:
+        weights[row : row + w.shape[0], column : column + w.shape[1]] = w
+        row, column = row + w.shape[0], column + w.shape[1]
+    return replace(
+        combined,
+        weights=weights,
+        bias=np.concatenate([b for _w, b, _hw, _hb in layers]),
+        hidden_weights=np.vstack([widen(layer[2], h) for layer, h in zip(layers, head_sets, strict=True)]),
+        hidden_bias=np.concatenate([hb for *_, hb in layers]),
+    )
+
+
+def _as_layered(heads: HeadSet) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """(weights, bias, hidden weights, hidden bias) giving the same logits through a ReLU layer.
+
+    Linear heads pass through it exactly, as relu(z) - relu(-z) = z: hidden units for w and -w
+    (their bias moves into the hidden layer, so the output bias of a linear head becomes 0).
+    """
+    if heads.hidden_weights is not None and heads.hidden_bias is not None:
+        return heads.weights, heads.bias, heads.hidden_weights, heads.hidden_bias
+    n = len(heads.concepts)
+    eye = np.eye(n, dtype=np.float32)
+    hidden_w = np.vstack([heads.weights, -heads.weights])
+    hidden_b = np.concatenate([heads.bias, -heads.bias])
+    return np.hstack([eye, -eye]), np.zeros(n, np.float32), hidden_w, hidden_b
 
 
 def check_heads_fit(heads: HeadSet | None, vocabulary: Vocabulary, where: Path) -> None:

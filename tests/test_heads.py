@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
@@ -11,7 +12,7 @@ from captioner import packs
 from captioner.errors import PackError
 from captioner.events import concept_curves, detect_events
 from captioner.features import Frontend
-from captioner.fitting import NEGATIVE, POSITIVE, TrainingSet, fit_logistic, train_heads
+from captioner.fitting import NEGATIVE, POSITIVE, TrainingSet, fit_layered, fit_logistic, train_heads
 from captioner.heads import (
     DECADES,
     FLOOR_DECADES,
@@ -19,6 +20,7 @@ from captioner.heads import (
     NewConcept,
     calibrate,
     calibration_knots,
+    combine_heads,
     knot_scores,
     load_heads,
     save_heads,
@@ -41,6 +43,16 @@ def _heads(concepts: tuple[str, ...], width: int, seed: int = 0) -> HeadSet:
         knot_scores(),
         new_concepts={c: NewConcept(c.replace("_", " "), c.replace("_", " ") + "s") for c in concepts},
         info={"trained_on": "test"},
+    )
+
+
+def _layered(concepts: tuple[str, ...], width: int, hidden: int, seed: int = 0, **fields: object) -> HeadSet:
+    rng = np.random.default_rng(seed + 100)
+    return replace(
+        _heads(concepts, hidden, seed),
+        hidden_weights=rng.normal(size=(hidden, width)).astype(np.float32),
+        hidden_bias=rng.normal(size=hidden).astype(np.float32),
+        **fields,  # type: ignore[arg-type]
     )
 
 
@@ -86,6 +98,37 @@ def test_head_file_round_trips(tmp_path: Path) -> None:
     assert back.info == {"trained_on": "test"}
     x = np.random.default_rng(1).normal(size=(7, 16)).astype(np.float32)
     np.testing.assert_array_equal(back(x, np.zeros((7, 0))), heads(x, np.zeros((7, 0))))
+
+
+def test_layered_head_file_round_trips_and_is_checked(tmp_path: Path) -> None:
+    heads = _layered(("gate_squeak", "kettle_click"), 16, 8)
+    save_heads(tmp_path / "h.heads.npz", heads)
+    back = load_heads(tmp_path / "h.heads.npz")
+    assert back.hidden_weights is not None and back.hidden_bias is not None and back.n_inputs == 16
+    np.testing.assert_array_equal(back.hidden_weights, heads.hidden_weights)
+    x = np.random.default_rng(1).normal(size=(7, 16)).astype(np.float32)
+    # The logits are a ReLU layer then a linear one, written out here with numpy alone.
+    expected = np.maximum(x @ heads.hidden_weights.T + heads.hidden_bias, 0) @ heads.weights.T + heads.bias
+    np.testing.assert_allclose(back.raw(x, np.zeros((7, 0))), expected, rtol=1e-5, atol=1e-5)
+    bad = replace(heads, hidden_bias=np.zeros(5, np.float32))  # 5 biases for 8 hidden units
+    save_heads(tmp_path / "bad.heads.npz", bad)
+    with pytest.raises(PackError, match="do not fit together"):
+        load_heads(tmp_path / "bad.heads.npz")
+
+
+def test_combined_head_files_give_each_head_its_own_scores() -> None:
+    # A user's linear file (embedding only) beside a built-in layered file that also reads the
+    # class scores: one stack, and every head scores exactly what its own file scores.
+    linear = _heads(("gate_squeak",), 16)
+    layered = _layered(("kettle_click", "door_chime"), 16 + 5, 8, seed=2, uses_class_scores=True)
+    both = combine_heads([linear, layered], 16, 5, Path("pack.yaml"))
+    assert both is not None and both.concepts == ("gate_squeak", "kettle_click", "door_chime")
+    rng = np.random.default_rng(4)
+    emb, cls = rng.normal(size=(9, 16)).astype(np.float32), rng.uniform(size=(9, 5)).astype(np.float32)
+    alone = np.hstack([linear.raw(emb, cls), layered.raw(emb, cls)])
+    np.testing.assert_allclose(both.raw(emb, cls), alone, rtol=1e-5, atol=1e-4)
+    two_linear = combine_heads([linear, _heads(("door_chime",), 16, seed=3)], 16, 5, Path("pack.yaml"))
+    assert two_linear is not None and two_linear.hidden_weights is None
 
 
 def test_head_file_checks(tmp_path: Path) -> None:
@@ -236,3 +279,26 @@ def test_training_separates_tones_from_noise(pack: packs.LoadedPack) -> None:
     assert reports[0].auc is not None and reports[0].auc > 0.95
     assert reports[0].positive_groups == 12
     assert heads.weights.shape == (1, 1024)
+    layered, reports = train_heads(data, folds=3, hidden=16, seeds=2)
+    assert reports[0].auc is not None and reports[0].auc > 0.95
+    assert layered.hidden_weights is not None and layered.hidden_weights.shape == (32, 1024)
+    logits = layered.raw(data.features, np.zeros((len(data.features), 0), np.float32))[:, 0]
+    tone = data.labels[:, 0] == POSITIVE
+    assert logits[tone].min() > logits[~tone].max()  # the final fit, not only the folds, separates
+
+
+def test_a_hidden_layer_learns_what_a_linear_head_cannot() -> None:
+    # Positives where two features share a sign (XOR): no line separates them. AUC by
+    # scikit-learn's roc_auc_score on fresh points, not by our own metric.
+    from sklearn.metrics import roc_auc_score
+
+    rng = np.random.default_rng(5)
+    x = rng.normal(size=(3000, 4)).astype(np.float32)
+    y = (x[:, 0] * x[:, 1] > 0).astype(np.int8)
+    fresh = rng.normal(size=(1000, 4)).astype(np.float32)
+    truth = fresh[:, 0] * fresh[:, 1] > 0
+    hidden_w, hidden_b, w, b = fit_layered(x, y[:, None], hidden=16, seed=0, epochs=30)
+    layered = np.maximum(fresh @ hidden_w.T + hidden_b, 0) @ w.T + b
+    assert roc_auc_score(truth, layered[:, 0]) > 0.9
+    lw, lb = fit_logistic(x, y[:, None], l2=1e-3)
+    assert roc_auc_score(truth, (fresh @ lw.T + lb)[:, 0]) < 0.65
