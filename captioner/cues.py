@@ -118,7 +118,7 @@ def build_cues(
             drafts.append(
                 _timed(event.end_ms, event.end_ms, end_lines, (event.event_id + "-end",), layout, duration_ms)
             )
-    drafts.sort(key=lambda c: (c.start_ms, c.end_ms))
+    drafts.sort(key=lambda c: c.start_ms)  # stable: events starting together stay in the policy's order
     return _resolve(drafts, layout, duration_ms)
 
 
@@ -148,7 +148,9 @@ def _resolve(
        reading time: a continuing sound is not captioned again beside the new one (DCMP).
     5. Both texts show together once the earlier cue has had its minimum time, when the
        lines fit (the new text comes a little late rather than the earlier one too briefly).
-    6. Otherwise the new cue is dropped, with a `layout` decision for its events.
+    6. Otherwise the new cue is dropped, with a `layout` decision for its events. Sounds that
+       start at the same moment come in the policy's order, most needed first, so the least
+       needed is the one left out.
     A line the earlier cue already shows is never repeated in the one it shares.
     Then `_settle` fixes gaps and the media's end.
     """

@@ -130,8 +130,9 @@ def select_events(events: list[SoundEvent], dialogue: tuple[Span, ...], settings
         decisions[event.event_id] = Decision(
             event.event_id, True, "kept", f"salience {salience(event, settings):.2f}{extra}"
         )
+    # Sounds that start together: the most needed first, so that they take the screen's lines.
     return Selected(
-        tuple(sorted(kept, key=lambda e: (e.start_ms, e.event_id))),
+        tuple(sorted(kept, key=lambda e: (e.start_ms, -salience(e, settings), e.event_id))),
         tuple(decisions[e.event_id] for e in events),
     )
 

@@ -515,3 +515,24 @@ def test_a_sound_loud_enough_to_mask_the_speech_is_kept_under_dialogue() -> None
     kept, rules = run([gale, breeze, unsure], replace(gate, dialogue_masking_db=15.0), talk)
     assert kept == {"g"} and rules["b"] == rules["u"] == "dialogue"
     assert run([gale, breeze, unsure], gate, talk)[0] == set()  # 0 switches the exemption off
+
+
+def test_sounds_starting_together_are_kept_most_needed_first_and_take_the_lines() -> None:
+    # Three sounds from the same moment, two caption lines (a CEA-608 style allows 2): the
+    # screen goes to the two that salience ranks highest, whatever their ids or lengths.
+    from captioner.cues import build_cues
+    from captioner.style import Style
+
+    events = [
+        event("e1", "hiccup", 20_600, 24_500, 0.68),
+        event("e2", "cough", 20_600, 28_300, 0.76),
+        event("e3", "clock", 20_600, 28_300, 0.92),
+    ]
+    settings = Selection(generic_redundancy=False, sibling_redundancy=False, max_cues_per_minute=0)
+    kept = select_events(events, (), settings).kept
+    assert [e.event_id for e in kept] == ["e3", "e2", "e1"]
+    ranks = [salience(e, settings) for e in kept]
+    assert ranks == sorted(ranks, reverse=True)
+    cues, dropped = build_cues(kept, Style(), 60_000)
+    assert cues[0].lines == ("[clock]", "[cough]")
+    assert [d.event_id for d in dropped] == ["e1"] and dropped[0].rule == "layout"
