@@ -6,7 +6,7 @@ import textwrap
 from dataclasses import dataclass, replace
 
 from .events import SoundEvent
-from .policy import Decision
+from .policy import Decision, salience
 from .style import Layout, Style, Wording
 from .vocabulary import Kind
 
@@ -119,7 +119,8 @@ def build_cues(
                 _timed(event.end_ms, event.end_ms, end_lines, (event.event_id + "-end",), layout, duration_ms)
             )
     drafts.sort(key=lambda c: c.start_ms)  # stable: events starting together stay in the policy's order
-    return _resolve(drafts, layout, duration_ms)
+    need = {event.event_id: salience(event, style.selection) for event in events}
+    return _resolve(drafts, layout, duration_ms, need)
 
 
 def _timed(
@@ -133,7 +134,7 @@ def _timed(
 
 
 def _resolve(
-    drafts: list[Cue], layout: Layout, duration_ms: int
+    drafts: list[Cue], layout: Layout, duration_ms: int, need: dict[str, float] | None = None
 ) -> tuple[tuple[Cue, ...], tuple[Decision, ...]]:
     """Make cues that overlap share the screen; a text never appears more than
     sync_tolerance_ms before its sound.
@@ -148,9 +149,10 @@ def _resolve(
        reading time: a continuing sound is not captioned again beside the new one (DCMP).
     5. Both texts show together once the earlier cue has had its minimum time, when the
        lines fit (the new text comes a little late rather than the earlier one too briefly).
-    6. Otherwise the new cue is dropped, with a `layout` decision for its events. Sounds that
-       start at the same moment come in the policy's order, most needed first, so the least
-       needed is the one left out.
+    6. Otherwise, when it starts within sync_tolerance_ms of the earlier cue and its sound is
+       more needed (policy.salience, in `need`) than one the earlier cue shows, it takes that
+       sound's line; else it is dropped. Either way the sound left out gets a `layout`
+       decision. Sounds that start at the same moment come most needed first.
     A line the earlier cue already shows is never repeated in the one it shares.
     Then `_settle` fixes gaps and the media's end.
     """
@@ -196,11 +198,43 @@ def _resolve(
                 replace(both, start_ms=start, end_ms=end, event_ids=cue.event_ids + previous.event_ids)
             )
         else:
-            dropped.extend(_no_room(cue, "no room on screen beside an earlier caption"))
+            swap = _give_way(previous, cue, need or {}, drafts, layout)
+            if swap is None:
+                dropped.extend(_no_room(cue, "no room on screen beside an earlier caption"))
+            else:
+                cues[-1], loser = swap
+                dropped.extend(_no_room(loser, "gave its line to a more needed sound starting with it"))
     settled, late = _settle(cues, layout, duration_ms)
     for cue in late:
         dropped.extend(_no_room(cue, "no room for its minimum time before the media ends"))
     return tuple(unique_ids(settled)), tuple(dropped)
+
+
+def _give_way(
+    previous: Cue, cue: Cue, need: dict[str, float], drafts: list[Cue], layout: Layout
+) -> tuple[Cue, Cue] | None:
+    """(the earlier cue with the new sound's line in place of its least needed one, that sound
+    alone), or None: only one-line sounds that start within sync_tolerance_ms trade places."""
+    own = {d.event_ids[0]: d.lines for d in drafts if len(d.event_ids) == 1}
+    ids = previous.event_ids
+    one_line_each = all(len(own.get(i, ())) == 1 for i in ids) and len(ids) == len(previous.lines)
+    if (
+        cue.start_ms - previous.start_ms > layout.sync_tolerance_ms
+        or len(cue.event_ids) != 1
+        or len(cue.lines) != 1
+        or not one_line_each
+        or tuple(own[i][0] for i in ids) != previous.lines  # lines in the order of their sounds
+        or any(i not in need for i in (*ids, cue.event_ids[0]))  # end cues are never traded
+    ):
+        return None
+    weakest = min(range(len(ids)), key=lambda k: need[ids[k]])
+    if need[cue.event_ids[0]] <= need[ids[weakest]] or cue.lines[0] in previous.lines:
+        return None
+    lines = previous.lines[:weakest] + cue.lines + previous.lines[weakest + 1 :]
+    kept = ids[:weakest] + cue.event_ids + ids[weakest + 1 :]
+    end = min(max(previous.end_ms, cue.end_ms), previous.start_ms + layout.max_duration_ms)
+    loser = Cue(previous.start_ms, previous.end_ms, (previous.lines[weakest],), (ids[weakest],))
+    return replace(previous, end_ms=end, lines=lines, event_ids=kept), loser
 
 
 def _no_room(cue: Cue, why: str) -> list[Decision]:

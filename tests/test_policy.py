@@ -536,3 +536,24 @@ def test_sounds_starting_together_are_kept_most_needed_first_and_take_the_lines(
     cues, dropped = build_cues(kept, Style(), 60_000)
     assert cues[0].lines == ("[clock]", "[cough]")
     assert [d.event_id for d in dropped] == ["e1"] and dropped[0].rule == "layout"
+
+
+def test_a_more_needed_sound_starting_a_moment_later_takes_the_least_needed_line() -> None:
+    # The clock starts 100 ms after two sounds that filled the screen's two lines: it is the
+    # most needed of the three, so the least needed gives way (and is reported as left out).
+    from captioner.cues import build_cues
+    from captioner.style import Style
+
+    events = [
+        event("e1", "hiccup", 20_600, 24_500, 0.68),
+        event("e2", "cough", 20_600, 28_300, 0.76),
+        event("e3", "clock", 20_700, 28_300, 0.92),
+        event("e4", "thud", 20_800, 21_300, 0.50),  # less needed than both: stays out
+    ]
+    settings = Selection(generic_redundancy=False, sibling_redundancy=False, max_cues_per_minute=0)
+    kept = select_events(events, (), settings).kept
+    cues, dropped = build_cues(kept, Style(), 60_000)
+    assert cues[0].lines == ("[clock]", "[cough]") or cues[0].lines == ("[cough]", "[clock]")
+    assert cues[0].start_ms == 20_600 and set(cues[0].event_ids) == {"e2", "e3"}
+    assert sorted(d.event_id for d in dropped) == ["e1", "e4"]
+    assert all(d.rule == "layout" and not d.kept for d in dropped)
