@@ -2,7 +2,8 @@
 
 The classifier's own labels were not made for captions; a head per concept, trained on
 labelled recordings, reads the network's embedding instead. A head file (.npz, no pickles)
-holds for each concept a linear layer and a calibration of its raw output:
+holds for each concept an output layer (over the inputs, or over one hidden layer that the
+file's heads share) and a calibration of its raw output:
 
     decades = -log10(share of held-out negative patches scoring as high)
     score = clip((decades - FLOOR_DECADES) / (DECADES - FLOOR_DECADES), 0, 1)
