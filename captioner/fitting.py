@@ -15,7 +15,7 @@ from typing import Any
 import numpy as np
 from scipy.optimize import minimize
 
-from .heads import HeadSet, NewConcept, calibration_knots, knot_scores
+from .heads import HeadSet, NewConcept, calibration_knots, forward, knot_scores
 from .separability import average_precision, roc_auc
 
 POSITIVE, NEGATIVE, IGNORED = 1, 0, -1
@@ -62,12 +62,7 @@ def fit_logistic(
     """
     x = np.asarray(x, dtype=np.float32)
     d = x.shape[1]
-    used = labels >= 0
-    positive = labels == POSITIVE
-    n_pos = np.maximum(positive.sum(axis=0), 1)
-    n_neg = np.maximum((used & ~positive).sum(axis=0), 1)
-    weight = np.where(positive, 0.5 / n_pos, 0.5 / n_neg) * used  # (n, h)
-    target = positive.astype(np.float32)
+    weight, target = _balanced(labels)
     h = labels.shape[1]
 
     def loss(theta: np.ndarray) -> tuple[float, np.ndarray]:
@@ -85,6 +80,16 @@ def fit_logistic(
     result = minimize(loss, np.zeros(d * h + h), jac=True, method="L-BFGS-B", options={"maxiter": max_iter})
     theta = result.x
     return theta[: d * h].reshape(d, h).T.astype(np.float32), theta[d * h :].astype(np.float32)
+
+
+def _balanced(labels: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Row weights (n, n_heads): each head's positives and negatives weigh half each, IGNORED
+    rows nothing; and the 0/1 targets."""
+    used = labels >= 0
+    positive = labels == POSITIVE
+    n_pos = np.maximum(positive.sum(axis=0), 1)
+    n_neg = np.maximum((used & ~positive).sum(axis=0), 1)
+    return np.where(positive, 0.5 / n_pos, 0.5 / n_neg) * used, positive.astype(np.float32)
 
 
 def fit_layered(
@@ -108,13 +113,8 @@ def fit_layered(
     rng = np.random.default_rng(seed)
     x = np.asarray(x, dtype=np.float32)
     n, d = x.shape
-    used = labels >= 0
-    positive = labels == POSITIVE
-    n_pos = np.maximum(positive.sum(axis=0), 1)
-    n_neg = np.maximum((used & ~positive).sum(axis=0), 1)
-    # Row weights as in fit_logistic, scaled by n so that a batch mean has the usual size.
-    weight = (np.where(positive, 0.5 / n_pos, 0.5 / n_neg) * used * n).astype(np.float32)
-    target = positive.astype(np.float32)
+    weight, target = _balanced(labels)
+    weight = (weight * n).astype(np.float32)  # scaled by n so that a batch mean has the usual size
     params = [
         (rng.normal(size=(d, hidden)) * np.sqrt(2.0 / d)).astype(np.float32),
         np.zeros(hidden, np.float32),
@@ -194,14 +194,6 @@ def _fit_model(x: np.ndarray, labels: np.ndarray, l2: float, hidden: int, seeds:
     )
 
 
-def _logits(model: _Model, x: np.ndarray) -> np.ndarray:
-    hidden_w, hidden_b, w, b = model
-    if hidden_w is not None and hidden_b is not None:
-        x = np.maximum(x @ hidden_w.T + hidden_b, 0.0)
-    out: np.ndarray = x @ w.T + b
-    return out
-
-
 def fold_of(groups: np.ndarray, folds: int) -> np.ndarray:
     """Fold number per row, the same for every row of a group (a stable hash of its number)."""
     return ((np.asarray(groups, dtype=np.int64) * 2654435761) % 2**32 % folds).astype(np.int64)
@@ -233,7 +225,7 @@ def train_heads(
             continue
         say(f"fold {k + 1} of {folds}")
         model = _fit_model(x[~held], labels[~held], l2, hidden, seeds, seed=10 * k)
-        oof[held] = _logits(model, x[held])
+        oof[held] = forward(x[held], *model)
     say("final fit on every patch")
     hidden_w, hidden_b, weights, bias = _fit_model(x, labels, l2, hidden, seeds, seed=100)
     reports = []

@@ -82,18 +82,32 @@ class HeadSet:
         logits = np.empty((len(embeddings), len(self.concepts)), np.float32)
         for start in range(0, len(embeddings), _BLOCK):  # in blocks: an hour's inputs at once would be ~50 MB
             rows = slice(start, start + _BLOCK)
-            x = embeddings[rows]
-            if self.uses_class_scores:
-                x = np.hstack([x, class_scores[rows]])
-            x = x.astype(np.float32, copy=False)
-            if self.hidden_weights is not None and self.hidden_bias is not None:
-                x = np.maximum(x @ self.hidden_weights.T + self.hidden_bias, 0.0)
-            logits[rows] = x @ self.weights.T + self.bias
+            x = (
+                np.hstack([embeddings[rows], class_scores[rows]])
+                if self.uses_class_scores
+                else embeddings[rows]
+            )
+            logits[rows] = forward(x, self.hidden_weights, self.hidden_bias, self.weights, self.bias)
         return logits
 
     def __call__(self, embeddings: np.ndarray, class_scores: np.ndarray) -> np.ndarray:
         """Calibrated scores (n, n_heads) float32 in [0, 1]."""
         return calibrate(self.raw(embeddings, class_scores), self.knots, self.knot_scores)
+
+
+def forward(
+    inputs: np.ndarray,
+    hidden_weights: np.ndarray | None,
+    hidden_bias: np.ndarray | None,
+    weights: np.ndarray,
+    bias: np.ndarray,
+) -> np.ndarray:
+    """Logits of heads over `inputs`: through the ReLU layer when there is one, then linear."""
+    x = inputs.astype(np.float32, copy=False)
+    if hidden_weights is not None and hidden_bias is not None:
+        x = np.maximum(x @ hidden_weights.T + hidden_bias, 0.0)
+    logits: np.ndarray = x @ weights.T + bias
+    return logits
 
 
 def calibrate(logits: np.ndarray, knots: np.ndarray, knot_scores: np.ndarray) -> np.ndarray:
