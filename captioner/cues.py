@@ -134,7 +134,7 @@ def _timed(
 
 
 def _resolve(
-    drafts: list[Cue], layout: Layout, duration_ms: int, need: dict[str, float] | None = None
+    drafts: list[Cue], layout: Layout, duration_ms: int, need: dict[str, float]
 ) -> tuple[tuple[Cue, ...], tuple[Decision, ...]]:
     """Make cues that overlap share the screen; a text never appears more than
     sync_tolerance_ms before its sound.
@@ -158,6 +158,7 @@ def _resolve(
     """
     cues: list[Cue] = []
     dropped: list[Decision] = []
+    lines_of = {d.event_ids[0]: d.lines for d in drafts}  # each draft is one sound (or its end)
     for cue in drafts:
         if not cues or cue.start_ms >= cues[-1].end_ms:
             cues.append(cue)
@@ -198,7 +199,7 @@ def _resolve(
                 replace(both, start_ms=start, end_ms=end, event_ids=cue.event_ids + previous.event_ids)
             )
         else:
-            swap = _give_way(previous, cue, need or {}, drafts, layout)
+            swap = _give_way(previous, cue, need, lines_of, layout)
             if swap is None:
                 dropped.extend(_no_room(cue, "no room on screen beside an earlier caption"))
             else:
@@ -211,20 +212,18 @@ def _resolve(
 
 
 def _give_way(
-    previous: Cue, cue: Cue, need: dict[str, float], drafts: list[Cue], layout: Layout
+    previous: Cue, cue: Cue, need: dict[str, float], lines_of: dict[str, tuple[str, ...]], layout: Layout
 ) -> tuple[Cue, Cue] | None:
     """(the earlier cue with the new sound's line in place of its least needed one, that sound
     alone), or None: only one-line sounds that start within sync_tolerance_ms trade places."""
-    own = {d.event_ids[0]: d.lines for d in drafts if len(d.event_ids) == 1}
     ids = previous.event_ids
-    one_line_each = all(len(own.get(i, ())) == 1 for i in ids) and len(ids) == len(previous.lines)
     if (
         cue.start_ms - previous.start_ms > layout.sync_tolerance_ms
         or len(cue.event_ids) != 1
         or len(cue.lines) != 1
-        or not one_line_each
-        or tuple(own[i][0] for i in ids) != previous.lines  # lines in the order of their sounds
         or any(i not in need for i in (*ids, cue.event_ids[0]))  # end cues are never traded
+        or tuple(line for i in ids for line in lines_of[i]) != previous.lines  # one line per sound, in order
+        or len(ids) != len(previous.lines)
     ):
         return None
     weakest = min(range(len(ids)), key=lambda k: need[ids[k]])
